@@ -1,5 +1,0 @@
-"""Command line (placeholder until the CLI lands)."""
-
-
-def main() -> None:
-    print("imgcut")

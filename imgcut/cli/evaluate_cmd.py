@@ -1,0 +1,1 @@
+"""Command module placeholder: its owner registers commands on `imgcut.cli._app.app`."""
