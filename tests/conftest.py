@@ -13,5 +13,5 @@ SHARED_DATA = Path(__file__).resolve().parents[1].parent / "shared" / "data"
 def shared_data() -> Path:
     """Path to ``../shared/data`` beside the checkout; skip the test when it is absent."""
     if not SHARED_DATA.is_dir():
-        pytest.skip(f"benchmark data not found at {SHARED_DATA} (../shared/data beside the checkout)")
+        pytest.skip(f"benchmark data not found at {SHARED_DATA} (../shared/data beside checkout)")
     return SHARED_DATA
