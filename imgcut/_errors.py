@@ -1,6 +1,13 @@
 """Warning and error classes of imgcut."""
 
-__all__ = ["ImgcutWarning", "EigenConvergenceWarning", "GraphTooLargeError"]
+__all__ = [
+    "ImgcutWarning",
+    "EigenConvergenceWarning",
+    "GraphTooLargeError",
+    "ImageReadError",
+    "ImageTooLargeError",
+    "OutputExistsError",
+]
 
 
 class ImgcutWarning(UserWarning):
@@ -20,3 +27,18 @@ class GraphTooLargeError(MemoryError, ValueError):
     Raised before anything large is allocated; the message suggests the multiscale
     path or a smaller radius.
     """
+
+
+class ImageReadError(ValueError):
+    """An image file could not be read: empty, not an image, corrupt, NaN/inf samples, or a
+    plane/channel selection that does not fit it. The message is one line naming the file."""
+
+
+class ImageTooLargeError(ImageReadError):
+    """An image has more pixels than the reader's ``max_pixels`` limit (a decompression-bomb
+    guard); checked from the header before any pixel is decoded."""
+
+
+class OutputExistsError(FileExistsError):
+    """Output files of a run already exist and overwriting was not requested; the message names
+    the first existing file."""
