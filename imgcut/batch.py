@@ -27,6 +27,7 @@ import os
 import signal
 import sys
 import time
+from collections import deque
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path, PurePosixPath
@@ -78,7 +79,6 @@ _THREAD_ENV = (
 
 _STATUSES = ("done", "skipped", "failed")
 _SUMMARY_INTERVAL_S = 2.0  # rewrite summary.csv at most this often while running
-_MAX_ATTEMPTS = 2  # an image in flight when a worker process dies this often is marked failed
 
 
 # ---------------------------------------------------------------------------------------------
@@ -681,6 +681,9 @@ def _relative_overlay(pipeline: Any, item: BatchItem, out_root: Path) -> str:
         return ""
 
 
+_DIED = "the worker process running this image died (out of memory, or killed)"
+
+
 def _run_local(
     todo: list[BatchItem],
     options: Any,
@@ -688,68 +691,60 @@ def _run_local(
     workers: int,
     finish: Callable[[BatchItem, _Outcome], None],
 ) -> bool:
-    """Run `todo` on `workers` spawned processes; return True when interrupted."""
+    """Run `todo` on `workers` spawned processes; return True when interrupted.
+
+    A worker that dies (killed, out of memory) breaks the whole process pool, and every image
+    in flight then fails with it. Those images become suspects: a new pool reruns them one at a
+    time, so only an image that kills its worker on its own is recorded as failed.
+    """
     context = multiprocessing.get_context("spawn")
-    attempts = {item.relative: 0 for item in todo}
-    pending = list(reversed(todo))  # pop() from the end keeps path order
+    pending = deque(todo)
+    suspects: deque[BatchItem] = deque()
     interrupted = False
-    while pending and not interrupted:
+    while (pending or suspects) and not interrupted:
         executor = cf.ProcessPoolExecutor(
             max_workers=workers, mp_context=context, initializer=_worker_init
         )
-        in_flight: dict[cf.Future, BatchItem] = {}
+        in_flight: dict[cf.Future, tuple[BatchItem, bool]] = {}  # future → (item, isolated)
         broken = False
         try:
-            while (pending or in_flight) and not broken:
-                # Keep exactly one image per worker in flight: a dead worker then costs only the
-                # images it was actually running, and Ctrl-C leaves nothing queued.
-                while pending and len(in_flight) < workers:
-                    item = pending.pop()
-                    attempts[item.relative] += 1
-                    in_flight[executor.submit(_local_task, pipeline, item, options)] = item
+            while (pending or suspects or in_flight) and not broken:
+                # At most one image per worker in flight (none queued): a dead worker then
+                # takes down only images that were running, and Ctrl-C leaves nothing queued.
+                if suspects:
+                    if not in_flight:
+                        item = suspects.popleft()
+                        future = executor.submit(_local_task, pipeline, item, options)
+                        in_flight[future] = (item, True)
+                else:
+                    while pending and len(in_flight) < workers:
+                        item = pending.popleft()
+                        future = executor.submit(_local_task, pipeline, item, options)
+                        in_flight[future] = (item, False)
                 done, _ = cf.wait(in_flight, return_when=cf.FIRST_COMPLETED)
                 for future in done:
-                    item = in_flight.pop(future)
                     try:
-                        finish(item, future.result())
+                        outcome = future.result()
                     except cf.process.BrokenProcessPool:
                         broken = True
-                        if attempts[item.relative] >= _MAX_ATTEMPTS:
-                            finish(
-                                item,
-                                _Outcome(
-                                    False,
-                                    "the worker process running this "
-                                    "image died (out of memory or killed)",
-                                ),
-                            )
-                        else:
-                            pending.append(item)
-            if broken:
-                # Every future still in flight failed with the pool; retry them on a new pool.
-                for item in in_flight.values():
-                    if attempts[item.relative] >= _MAX_ATTEMPTS:
-                        finish(
-                            item,
-                            _Outcome(
-                                False,
-                                "the worker process running this image "
-                                "died (out of memory or killed)",
-                            ),
-                        )
-                    else:
-                        pending.append(item)
-                in_flight.clear()
+                        continue  # handled below with the rest of the pool
+                    except Exception as exc:  # e.g. a result that cannot be pickled
+                        outcome = _Outcome(False, _one_line(exc))
+                    finish(in_flight.pop(future)[0], outcome)
+            for item, isolated in in_flight.values():  # only when the pool broke
+                if isolated:
+                    finish(item, _Outcome(False, _DIED))
+                else:
+                    suspects.append(item)
+            in_flight.clear()
         except KeyboardInterrupt:
             interrupted = True
-            pending.clear()
             # Workers ignore SIGINT: let the images in flight finish and record them, so every
-            # file they write is complete. A second Ctrl-C aborts this wait.
+            # file they write is complete. A second Ctrl-C abandons this wait.
             try:
                 for future in cf.as_completed(in_flight):
-                    item = in_flight[future]
                     try:
-                        finish(item, future.result())
+                        finish(in_flight[future][0], future.result())
                     except Exception:
                         pass
             except KeyboardInterrupt:
