@@ -15,7 +15,10 @@ import numpy as np
 import scipy.sparse as sp
 from skimage.measure import label as _connected_label
 
-__all__ = ["enforce_connectivity", "renumber_raster"]
+__all__ = ["enforce_connectivity", "pair_weights", "renumber_raster"]
+
+# Neighbour directions (dy, dx) of the pair-weight planes: right, down, down-right, down-left.
+_DIRECTIONS = ((0, 1), (1, 0), (1, 1), (1, -1))
 
 
 def _check_labels(labels: Any) -> np.ndarray:
@@ -65,25 +68,88 @@ def renumber_raster(labels: np.ndarray) -> np.ndarray:
     return new[inverse.ravel()].reshape(lab.shape)
 
 
-def _neighbour_pairs(pieces: np.ndarray, connectivity: int) -> tuple[np.ndarray, np.ndarray]:
-    """Piece ids of every pair of neighbouring pixels that lie in different pieces."""
-    shifts = [
-        (slice(None), slice(None, -1), slice(None), slice(1, None)),  # right
-        (slice(None, -1), slice(None), slice(1, None), slice(None)),
-    ]  # down
-    if connectivity == 2:
-        shifts += [
-            (slice(None, -1), slice(None, -1), slice(1, None), slice(1, None)),
-            (slice(None, -1), slice(1, None), slice(1, None), slice(None, -1)),
-        ]
-    a_all, b_all = [], []
-    for r0, c0, r1, c1 in shifts:
-        a = pieces[r0, c0].ravel()
-        b = pieces[r1, c1].ravel()
+def _pair_slices(dy: int, dx: int, h: int, w: int):
+    """Slices (source, destination) that pair pixel (i, j) with (i + dy, j + dx)."""
+    src_c = slice(max(0, -dx), w - max(0, dx))
+    dst_c = slice(max(0, dx), w - max(0, -dx))
+    return (slice(0, h - dy), src_c), (slice(dy, h), dst_c)
+
+
+def _neighbour_pairs(pieces: np.ndarray, connectivity: int, pw: np.ndarray | None):
+    """Piece ids (and pair weights) of neighbouring pixels that lie in different pieces."""
+    h, w = pieces.shape
+    a_all, b_all, w_all = [], [], []
+    for d, (dy, dx) in enumerate(_DIRECTIONS[: 2 * connectivity]):
+        src, dst = _pair_slices(dy, dx, h, w)
+        a = pieces[src].ravel()
+        b = pieces[dst].ravel()
         keep = (a != b) & (a > 0) & (b > 0)
         a_all.append(a[keep])
         b_all.append(b[keep])
-    return np.concatenate(a_all), np.concatenate(b_all)
+        if pw is not None:
+            w_all.append(pw[src][..., d].ravel()[keep].astype(np.float64))
+    a, b = np.concatenate(a_all), np.concatenate(b_all)
+    wts = np.concatenate(w_all) if pw is not None else np.zeros(a.size)
+    return a, b, wts
+
+
+def pair_weights(
+    weights: Any,
+    shape: tuple[int, int] | None = None,
+    *,
+    nodes: np.ndarray | None = None,
+) -> np.ndarray:
+    """Affinities between each pixel and its right, lower, lower-right and lower-left neighbour.
+
+    Parameters
+    ----------
+    weights : AffinityGraph or sparse matrix, shape (n, n)
+        Pixel affinities. ``shape`` and ``nodes`` are taken from an ``AffinityGraph``.
+    shape : (int, int), optional
+        Image shape ``(H, W)``; required for a bare sparse matrix.
+    nodes : ndarray of int, optional
+        Flat pixel index of each node; all pixels in raster order by default.
+
+    Returns
+    -------
+    ndarray of float32, shape (H, W, 4)
+        ``[i, j, d]`` is ``W`` between pixel ``(i, j)`` and ``(i, j) + (dy, dx)`` for
+        ``(dy, dx)`` = (0, 1), (1, 0), (1, 1), (1, -1); 0 where the neighbour is outside
+        the image, outside the graph, or not linked. About 16 bytes per pixel, so a result
+        can keep it for later merges instead of the whole graph.
+
+    Raises
+    ------
+    ValueError
+        If the matrix, ``shape`` and ``nodes`` do not fit together.
+
+    Examples
+    --------
+    >>> import numpy as np, scipy.sparse as sp
+    >>> W = sp.csr_matrix(np.array([[0, 0.5], [0.5, 0]]))
+    >>> pair_weights(W, (1, 2))[0, 0].tolist()
+    [0.5, 0.0, 0.0, 0.0]
+    """
+    if shape is None:
+        shape = getattr(weights, "shape", None) if hasattr(weights, "nodes") else None
+        if shape is None:
+            raise ValueError("shape=(H, W) is needed with a bare sparse matrix")
+    h, w = (int(v) for v in shape)
+    W, node_pixels = _graph_parts(weights, nodes, h * w)
+    node_of_pixel = np.full(h * w, -1, dtype=np.int64)
+    node_of_pixel[node_pixels] = np.arange(node_pixels.size)
+    node_of_pixel = node_of_pixel.reshape(h, w)
+    out = np.zeros((h, w, len(_DIRECTIONS)), dtype=np.float32)
+    for d, (dy, dx) in enumerate(_DIRECTIONS):
+        src, dst = _pair_slices(dy, dx, h, w)
+        p = node_of_pixel[src]
+        q = node_of_pixel[dst]
+        ok = (p >= 0) & (q >= 0)
+        if ok.any():
+            plane = np.zeros(p.shape, dtype=np.float32)
+            plane[ok] = np.asarray(W[p[ok], q[ok]]).ravel()  # CSR lookups, vectorised
+            out[src + (d,)] = plane
+    return out
 
 
 def _graph_parts(weights: Any, nodes: Any, n_pixels: int) -> tuple[sp.csr_matrix, np.ndarray]:
@@ -91,7 +157,7 @@ def _graph_parts(weights: Any, nodes: Any, n_pixels: int) -> tuple[sp.csr_matrix
     if nodes is None:
         nodes = getattr(weights, "nodes", None)
     if not sp.issparse(W):
-        raise ValueError("weights must be a scipy sparse matrix or an AffinityGraph")
+        raise ValueError("weights must be a scipy sparse matrix, an AffinityGraph or pair weights")
     W = sp.csr_matrix(W)
     if nodes is None:
         if W.shape[0] != n_pixels:
@@ -122,10 +188,11 @@ def enforce_connectivity(
         Non-negative labels; 0 is background and is left alone.
     min_area : int, default 1
         Regions with fewer pixels are merged into a neighbouring region (1 = no merging).
-    weights : AffinityGraph or sparse matrix, optional
-        Pixel affinities (``AffinityGraph`` or its ``weights`` CSR matrix). When given, a
-        fragment joins the neighbour it is most strongly connected to; otherwise the neighbour
-        it shares the longest border with.
+    weights : AffinityGraph, sparse matrix or ndarray, optional
+        Pixel affinities: an ``AffinityGraph``, its ``weights`` CSR matrix, or the
+        ``(H, W, 4)`` array of :func:`pair_weights`. When given, a fragment joins the
+        neighbour it is most strongly connected to; otherwise the neighbour it shares the
+        longest border with.
     nodes : ndarray of int, optional
         Flat pixel index of every row of ``weights`` (taken from an ``AffinityGraph``;
         defaults to all pixels in raster order).
@@ -149,12 +216,13 @@ def enforce_connectivity(
        ``skimage.measure.label``, which joins neighbouring pixels of equal value).
     2. Fragments smaller than ``min_area`` are merged, smallest first, into one of the regions
        they touch (share a pixel border with, so the result stays connected). The neighbour
-       chosen is the one with the largest connection ``sum_{i in F, j in N} W_ij`` -- the
-       affinity across the pair, i.e. the cut weight that merging removes -- with ties and the
-       no-weights case decided by the longest shared border (number of neighbouring pixel
-       pairs), then by the lower region number. A merged fragment that is still too small
-       keeps merging. A fragment that touches no other region (e.g. an isolated island of a
-       mask) is kept.
+       chosen is the one with the largest affinity across the shared border,
+       ``sum W_ij`` over neighbouring pixel pairs ``i in F``, ``j in N`` (4- or 8-neighbours
+       as ``connectivity``) -- the border weight that merging removes from the cut -- with
+       ties and the no-weights case decided by the longest shared border (number of
+       neighbouring pixel pairs), then by the lower region number. A merged fragment that is
+       still too small keeps merging. A fragment that touches no other region (e.g. an
+       isolated island of a mask) is kept.
 
     Examples
     --------
@@ -179,42 +247,37 @@ def enforce_connectivity(
     if small.size == 0 or np.count_nonzero(sizes) < 2:
         return renumber_raster(pieces)
 
-    # Border lengths between touching pieces (symmetric counts of neighbouring pixel pairs).
-    a, b = _neighbour_pairs(pieces, connectivity)
-    n_pieces = sizes.size
-    border = sp.coo_matrix(
-        (np.ones(2 * a.size), (np.concatenate([a, b]), np.concatenate([b, a]))),
-        shape=(n_pieces, n_pieces),
-    ).tocsr()
-    border.sum_duplicates()
-
-    # Affinity between a small piece and each other piece: rows of W for its pixels only.
-    is_small = np.zeros(n_pieces, dtype=bool)
-    is_small[small] = True
-    strength = None
+    pw = None
     if weights is not None:
-        W, node_pixels = _graph_parts(weights, nodes, lab.size)
-        node_piece = pieces.ravel()[node_pixels]
-        rows = np.flatnonzero(is_small[node_piece])
-        sub = W[rows]
-        src = np.repeat(node_piece[rows], np.diff(sub.indptr))
-        dst = node_piece[sub.indices]
-        strength = sp.coo_matrix((sub.data, (src, dst)), shape=(n_pieces, n_pieces)).tocsr()
-        strength.sum_duplicates()
+        if isinstance(weights, np.ndarray):
+            pw = weights
+            if pw.shape != lab.shape + (len(_DIRECTIONS),):
+                raise ValueError(
+                    f"pair weights must have shape {lab.shape + (len(_DIRECTIONS),)} "
+                    f"(from pair_weights), got {pw.shape}"
+                )
+        else:
+            pw = pair_weights(weights, lab.shape, nodes=nodes)
+
+    # Border length and affinity across the border of every ordered pair of touching pieces.
+    a, b, wts = _neighbour_pairs(pieces, connectivity, pw)
+    n_pieces = sizes.size
+    keys = np.concatenate([a * n_pieces + b, b * n_pieces + a])
+    pair, inverse = np.unique(keys, return_inverse=True)
+    lengths = np.bincount(inverse, minlength=pair.size).astype(np.float64)
+    affinity = np.bincount(inverse, weights=np.concatenate([wts, wts]), minlength=pair.size)
+    first = pair // n_pieces
+    second = pair % n_pieces
+    starts = np.searchsorted(first, small, side="left")
+    stops = np.searchsorted(first, small, side="right")
 
     # Adjacency dicts of the small pieces: neighbour -> [affinity, border length].
     adj: dict[int, dict[int, list[float]]] = {}
-    for p in small.tolist():  # loop over fragments, not pixels
-        lo, hi = border.indptr[p], border.indptr[p + 1]
-        nbrs = border.indices[lo:hi]
-        lengths = border.data[lo:hi]
-        entry = {int(q): [0.0, float(ln)] for q, ln in zip(nbrs, lengths, strict=True) if q != p}
-        if strength is not None:
-            slo, shi = strength.indptr[p], strength.indptr[p + 1]
-            for q, w in zip(strength.indices[slo:shi], strength.data[slo:shi], strict=True):
-                if int(q) in entry:
-                    entry[int(q)][0] += float(w)
-        adj[p] = entry
+    for p, lo, hi in zip(small.tolist(), starts.tolist(), stops.tolist(), strict=True):
+        adj[p] = {  # loop over fragments, not pixels
+            int(q): [float(w), float(ln)]
+            for q, w, ln in zip(second[lo:hi], affinity[lo:hi], lengths[lo:hi], strict=True)
+        }
 
     parent = np.arange(n_pieces, dtype=np.int64)
     size = sizes.astype(np.int64).copy()

@@ -9,7 +9,7 @@ import scipy.sparse as sp
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from imgcut.regions import enforce_connectivity, renumber_raster
+from imgcut.regions import enforce_connectivity, pair_weights, renumber_raster
 
 
 def grid_weights(img: np.ndarray) -> sp.csr_matrix:
@@ -128,3 +128,29 @@ def test_errors():
         enforce_connectivity(np.ones((2, 2), int), connectivity=3)
     with pytest.raises(ValueError, match="pass nodes="):
         enforce_connectivity(np.array([[1, 2]]), min_area=2, weights=sp.csr_matrix((3, 3)))
+
+
+def test_pair_weights_match_graph_entries_with_mask():
+    from imgcut.graph import affinity_graph
+
+    rng = np.random.default_rng(3)
+    img = rng.random((7, 9))
+    mask = rng.random((7, 9)) > 0.3
+    g = affinity_graph(img, radius=2, cue="intensity", mask=mask)
+    pw = pair_weights(g)
+    assert pw.shape == (7, 9, 4) and pw.dtype == np.float32
+    dense = g.weights.toarray()
+    node = {int(p): k for k, p in enumerate(g.nodes)}
+    for (i, j, d), value in np.ndenumerate(pw):
+        dy, dx = [(0, 1), (1, 0), (1, 1), (1, -1)][d]
+        p, q = i * 9 + j, (i + dy) * 9 + (j + dx)
+        inside = 0 <= i + dy < 7 and 0 <= j + dx < 9
+        expected = dense[node[p], node[q]] if inside and p in node and q in node else 0.0
+        assert value == pytest.approx(expected, rel=1e-6)
+    # The precomputed planes and the graph give the same merge.
+    lab = rng.integers(1, 3, (7, 9)) * mask
+    a = enforce_connectivity(lab, min_area=4, weights=g)
+    b = enforce_connectivity(lab, min_area=4, weights=pw)
+    assert np.array_equal(a, b)
+    with pytest.raises(ValueError, match="pair weights must have shape"):
+        enforce_connectivity(lab, min_area=4, weights=pw[:, :, :2])
