@@ -160,8 +160,9 @@ def affinity_graph(
         ``"intensity"``: Shi–Malik feature × distance weight; ``"contour"``: intervening
         contour; ``"combined"``: their product.
     sigma_feature, sigma_distance, sigma_edge : float or None
-        Scales σ_F, σ_X, σ_E (> 0, finite). None derives them (see Notes). A σ so large that
-        its factor is 1 everywhere is accepted: it switches that factor off.
+        Scales σ_F, σ_X, σ_E (> 0, finite). None derives them (see Notes). A large σ (say
+        1e100) is accepted and makes its factor 1 everywhere, i.e. switches that cue off; a σ
+        whose square overflows (> ~1e154) or whose 1/σ² overflows is rejected.
     mask : array_like of bool, optional
         ``(H, W)``; the graph has one node per True pixel (raster order) and links only True
         pixels.
@@ -179,8 +180,8 @@ def affinity_graph(
     ------
     ValueError
         Bad image, unknown cue (valid: "combined", "intensity", "contour"), radius not finite
-        and > 0, σ not finite and > 0 (or so small that 1/σ² overflows), bad mask, a mask that
-        selects no pixel.
+        and > 0, σ not finite and > 0 (or so large or small that σ² or 1/σ² overflows),
+        bad mask, a mask that selects no pixel.
     GraphTooLargeError
         The estimate from :func:`estimate_graph_memory` exceeds ``memory_budget``.
 
@@ -304,8 +305,10 @@ def _check_sigma(sigma, name: str) -> float:
     if not math.isfinite(s) or s <= 0:
         raise ValueError(f"{name} must be a finite number > 0 or None, got {sigma!r}")
     s2 = s * s
+    if not math.isfinite(s2):
+        raise ValueError(f"{name}={sigma!r} is too large: {name}² overflows float64")
     if s2 == 0.0 or not math.isfinite(1.0 / s2):
-        raise ValueError(f"{name}={sigma!r} is too small: 1/{name}² overflows")
+        raise ValueError(f"{name}={sigma!r} is too small: 1/{name}² overflows float64")
     return s
 
 
@@ -464,9 +467,9 @@ def _build(
     indices = np.empty(nnz, dtype=idx_dtype)
 
     values = np.moveaxis(feats.values, 2, 0)  # (C, H, W) views per channel
-    inv_f = 1.0 / sigmas["feature"] ** 2 if "feature" in sigmas else None
-    inv_x = 1.0 / sigmas["distance"] ** 2 if "distance" in sigmas else None
-    inv_e = 1.0 / sigmas["edge"] ** 2 if "edge" in sigmas else None
+    inv_f = _inverse_square(sigmas.get("feature"))
+    inv_x = _inverse_square(sigmas.get("distance"))
+    inv_e = _inverse_square(sigmas.get("edge"))
     edges = feats.edges
 
     for dy, dx in offsets:
@@ -503,6 +506,10 @@ def _build(
     weights = sp.csr_matrix((data, indices, indptr), shape=(n, n), copy=False)
     weights.has_sorted_indices = True
     return weights, nodes
+
+
+def _inverse_square(sigma: float | None) -> float | None:
+    return None if sigma is None else 1.0 / (sigma * sigma)
 
 
 def _exponent(values, edges, ri, rj, dy, dx, inv_f, inv_x, inv_e) -> np.ndarray:
