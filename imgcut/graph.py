@@ -29,6 +29,10 @@ _SIGMA_X_PER_RADIUS = 0.8
 # running maximum, positions). Measured with tracemalloc (benchmarks/bench_graph.py).
 _WORK_BYTES_PER_PIXEL = 96
 _INT32_MAX = np.iinfo(np.int32).max
+# Pixels per block of rows in the fill loop: the block's rows of the CSR arrays (about
+# 80 entries × 12 bytes per pixel at r = 5) then stay in the CPU cache while all offsets write
+# into them. Tuned with benchmarks/bench_graph.py.
+_BLOCK_PIXELS = 8192
 
 
 @dataclass(frozen=True, eq=False)
@@ -341,13 +345,17 @@ def _half_offsets(r: float) -> list[tuple[int, int]]:
     return out
 
 
-def _rectangles(height: int, width: int, dy: int, dx: int):
-    """Slices of the pixels i and their partners j = i + (dy, dx) that lie inside the image."""
-    if dy >= height or abs(dx) >= width:
+def _rectangles(height: int, width: int, dy: int, dx: int, row0: int = 0, row1: int | None = None):
+    """Slices of the pixels i and their partners j = i + (dy, dx) that lie inside the image.
+
+    Only pixels i in rows ``[row0, row1)`` are taken; None when there are none.
+    """
+    row_end = height - dy if row1 is None else min(row1, height - dy)
+    if row_end <= row0 or abs(dx) >= width:
         return None
     xi0, xi1 = max(0, -dx), width - max(0, dx)
-    ri = (slice(0, height - dy), slice(xi0, xi1))
-    rj = (slice(dy, height), slice(xi0 + dx, xi1 + dx))
+    ri = (slice(row0, row_end), slice(xi0, xi1))
+    rj = (slice(row0 + dy, row_end + dy), slice(xi0 + dx, xi1 + dx))
     return ri, rj
 
 
@@ -410,9 +418,21 @@ def _build(
     nnz: int,
     sigmas: dict[str, float],
 ) -> tuple[sp.csr_matrix, np.ndarray]:
+    """Fill the CSR arrays in place, one block of image rows and one offset at a time.
+
+    Row ``p`` of W holds first its mirrored entries (offsets ``−o_k``, flat offset < 0) and
+    then its forward entries (``+o_k``), each group in ascending column order. With ``o_k``
+    the half-plane offsets in ascending ``(dy, dx)`` order, the slot of ``+o_k`` is the number
+    of valid forward offsets ``k' < k`` after the mirrored group, and the slot of ``−o_k``
+    counts back from the end of the mirrored group by the number of valid ``k' < k``. Those
+    counts are popcounts of per-pixel validity bit sets, so every entry's position is known
+    independently of the visiting order; blocks of rows then keep the scattered writes of
+    both halves of a pair inside a cache-sized stretch of the arrays.
+    """
     height, width = feats.shape
     n_pix = height * width
     offsets = _half_offsets(r)
+    n_words = max(1, -(-len(offsets) // 64))
 
     if mask is None:
         nodes = np.arange(n_pix, dtype=np.int64)
@@ -428,40 +448,45 @@ def _build(
         rank = np.zeros((height, width), dtype=idx_dtype)
         rank[mask] = np.arange(n, dtype=idx_dtype)
 
-    # Pass 1: entries per row, split into mirrored ("negative", flat offset < 0) and forward.
-    n_neg = np.zeros((height, width), dtype=np.int64)
-    n_all = np.zeros((height, width), dtype=np.int64)
-    for dy, dx in offsets:
+    # Pass 1: validity bit sets. Bit k of fwd_bits[p] <=> pair (p, p + o_k) is in the graph;
+    # bit k of bwd_bits[p] <=> pair (p, p − o_k) is.
+    fwd_bits = np.zeros((n_words, height, width), dtype=np.uint64)
+    bwd_bits = np.zeros((n_words, height, width), dtype=np.uint64)
+    for k, (dy, dx) in enumerate(offsets):
         rects = _rectangles(height, width, dy, dx)
         if rects is None:
             continue
         ri, rj = rects
+        word, bit = divmod(k, 64)
+        flag = np.uint64(1 << bit)
+        fw, bw = fwd_bits[word][ri], bwd_bits[word][rj]
         if mask is None:
-            n_all[ri] += 1
-            n_neg[rj] += 1
+            fw |= flag
+            bw |= flag
         else:
             valid = mask[ri] & mask[rj]
-            n_all[ri] += valid
-            n_neg[rj] += valid
-    n_all += n_neg
-    counts = n_all.ravel() if mask is None else n_all[mask]
+            np.bitwise_or(fw, flag, out=fw, where=valid)
+            np.bitwise_or(bw, flag, out=bw, where=valid)
+
+    # Entries per row, row pointers, and where each row's forward group starts.
+    n_fwd = np.bitwise_count(fwd_bits).sum(axis=0, dtype=np.int64)
+    n_bwd = np.bitwise_count(bwd_bits).sum(axis=0, dtype=np.int64)
+    counts = n_fwd + n_bwd
+    del n_fwd
     indptr = np.zeros(n + 1, dtype=idx_dtype)
-    np.cumsum(counts, out=indptr[1:])
-    del counts
+    np.cumsum(counts.ravel() if mask is None else counts[mask], out=indptr[1:])
     if int(indptr[-1]) != nnz:  # pragma: no cover - internal consistency
         raise RuntimeError(f"graph builder count mismatch: {int(indptr[-1])} != {nnz}")
-
-    # Cursors: forward entries of row p start at indptr[p] + n_neg[p] and move right; mirrored
-    # entries end there and move left (offsets are visited in ascending (dy, dx) order, so the
-    # mirrored offsets arrive in descending order). Both cursors start at the same place.
-    fwd = n_all  # reuse memory
+    start = counts  # reuse memory: indptr[p] + n_bwd[p]
     if mask is None:
-        fwd.ravel()[:] = indptr[:-1]
+        start.ravel()[:] = indptr[:-1]
     else:
-        fwd[mask] = indptr[:-1]
-    fwd += n_neg
-    bwd = n_neg
-    bwd[...] = fwd
+        start[mask] = indptr[:-1]
+    start += n_bwd
+    del n_bwd, counts
+    # With more than 64 offsets, the popcounts of the lower words are added per word.
+    fwd_below = _words_below(fwd_bits)
+    bwd_below = _words_below(bwd_bits)
 
     data = np.empty(nnz, dtype=np.float64)
     indices = np.empty(nnz, dtype=idx_dtype)
@@ -472,40 +497,48 @@ def _build(
     inv_e = _inverse_square(sigmas.get("edge"))
     edges = feats.edges
 
-    for dy, dx in offsets:
-        rects = _rectangles(height, width, dy, dx)
-        if rects is None:
-            continue
-        ri, rj = rects
-        expo = _exponent(values, edges, ri, rj, dy, dx, inv_f, inv_x, inv_e)
-        np.negative(expo, out=expo)
-        w = np.exp(expo, out=expo)
-        if mask is None:
-            pos = fwd[ri]
-            data[pos] = w
-            indices[pos] = rank[rj]
-            pos += 1
-            pos = bwd[rj]
-            pos -= 1
-            data[pos] = w
-            indices[pos] = rank[ri]
-        else:
-            valid = mask[ri] & mask[rj]
-            wv = w[valid]
-            pos_view = fwd[ri]
-            pos = pos_view[valid]
-            data[pos] = wv
-            indices[pos] = rank[rj][valid]
-            pos_view += valid
-            pos_view = bwd[rj]
-            pos_view -= valid
-            pos = pos_view[valid]
-            data[pos] = wv
-            indices[pos] = rank[ri][valid]
+    rows_per_block = max(1, _BLOCK_PIXELS // width)
+    for b0 in range(0, height, rows_per_block):
+        b1 = min(height, b0 + rows_per_block)
+        for k, (dy, dx) in enumerate(offsets):
+            rects = _rectangles(height, width, dy, dx, b0, b1)
+            if rects is None:
+                continue
+            ri, rj = rects
+            word, bit = divmod(k, 64)
+            low = np.uint64((1 << bit) - 1)
+            expo = _exponent(values, edges, ri, rj, dy, dx, inv_f, inv_x, inv_e)
+            np.negative(expo, out=expo)
+            w = np.exp(expo, out=expo)
+            # forward entry (p, p + o_k) in row p = i
+            pos_f = np.bitwise_count(fwd_bits[word][ri] & low).astype(np.int64)
+            pos_f += start[ri]
+            # mirrored entry (q, q − o_k) in row q = j
+            pos_b = np.bitwise_count(bwd_bits[word][rj] & low).astype(np.int64)
+            np.subtract(start[rj] - 1, pos_b, out=pos_b)
+            if word:
+                pos_f += fwd_below[word - 1][ri]
+                pos_b -= bwd_below[word - 1][rj]
+            cols_f, cols_b = rank[rj], rank[ri]
+            if mask is not None:
+                valid = mask[ri] & mask[rj]
+                w, pos_f, pos_b = w[valid], pos_f[valid], pos_b[valid]
+                cols_f, cols_b = cols_f[valid], cols_b[valid]
+            data[pos_f] = w
+            indices[pos_f] = cols_f
+            data[pos_b] = w
+            indices[pos_b] = cols_b
 
     weights = sp.csr_matrix((data, indices, indptr), shape=(n, n), copy=False)
     weights.has_sorted_indices = True
     return weights, nodes
+
+
+def _words_below(bits: np.ndarray) -> np.ndarray | None:
+    """Cumulative popcount of words 0..w for w < n_words − 1 (None with a single word)."""
+    if bits.shape[0] == 1:
+        return None
+    return np.cumsum(np.bitwise_count(bits[:-1]), axis=0, dtype=np.int32)
 
 
 def _inverse_square(sigma: float | None) -> float | None:
