@@ -7,6 +7,7 @@ __all__ = [
     "ImageReadError",
     "ImageTooLargeError",
     "OutputExistsError",
+    "OutputFolderError",
 ]
 
 
@@ -42,3 +43,8 @@ class ImageTooLargeError(ImageReadError):
 class OutputExistsError(FileExistsError):
     """Output files of a run already exist and overwriting was not requested; the message names
     the first existing file."""
+
+
+class OutputFolderError(OSError):
+    """The output folder is not a folder, cannot be created, or is not writable; the message
+    is one line naming the folder."""
