@@ -40,6 +40,7 @@ __all__ = [
     "BatchProgress",
     "BatchReport",
     "ImageResult",
+    "RunnerPipeline",
     "discover_images",
     "plan_batch",
     "read_summary",
@@ -416,6 +417,11 @@ def _worker_init() -> None:
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(limits=1)
+    try:  # import the pipeline now, so an image's time and memory are its own
+        import imgcut.runner
+        import imgcut.segment  # noqa: F401
+    except ImportError:  # reported by the first image instead
+        pass
 
 
 def _reset_peak_memory() -> bool:
@@ -448,10 +454,10 @@ def _peak_memory_mb() -> float | None:
 
 
 def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split()) or type(exc).__name__
-    if isinstance(exc, (OSError, MemoryError)) and type(exc).__name__ not in text:
-        text = f"{type(exc).__name__}: {text}"
-    return text
+    """The error as one line; a raw OS error becomes ``file: reason``."""
+    if isinstance(exc, OSError) and exc.strerror and exc.filename:
+        return f"{exc.filename}: {exc.strerror}"
+    return " ".join(str(exc).split()) or type(exc).__name__
 
 
 @dataclass
@@ -626,16 +632,60 @@ class _Recorder:
 # ---------------------------------------------------------------------------------------------
 
 
-def _default_pipeline() -> Any:
-    try:
-        from imgcut import runner  # noqa: F401
-    except ImportError as exc:  # pragma: no cover - only while the runner is being written
-        raise ImportError("imgcut.runner (the per-image pipeline) is not available") from exc
-    return _RunnerPipeline()
+class RunnerPipeline:
+    """The per-image pipeline of `run_batch`: ``imgcut.runner``'s compute / write / up_to_date.
+
+    `compute` reads, segments and renders every output in memory (it writes nothing, so it can
+    run on a dask worker); `write` writes those bytes atomically, the run record last, adding
+    ``extra`` (peak memory, worker) under the record's ``"run"`` key. A stand-in with the same
+    four methods can be passed to `run_batch` as ``pipeline`` (tests use one that kills its
+    own worker).
+    """
+
+    def compute(self, source: Path, options: Any) -> Any:
+        """Read, segment and render one image (``imgcut.runner.compute``)."""
+        from imgcut import runner
+
+        return runner.compute(source, options)
+
+    def write(
+        self, computed: Any, item: BatchItem, options: Any, *, extra: dict[str, Any]
+    ) -> dict[str, Any]:
+        """Write one computed image under ``item.out_dir``; return its counts."""
+        from imgcut import runner
+
+        report = runner.write(computed, item.out_dir, overwrite=True, extra=extra)
+        return {"regions": report.regions, "objects": report.objects}
+
+    def up_to_date(self, item: BatchItem, options: Any) -> dict[str, Any] | None:
+        """Counts and timings from the run record when the outputs are current, else None."""
+        from imgcut import runner
+
+        record = runner.up_to_date(item.source, item.out_dir, options)
+        if record is None:
+            return None
+        result = record.get("result", {})
+        run = record.get("run") or {}
+        return {
+            "regions": result.get("regions"),
+            "objects": result.get("objects"),
+            "seconds": (record.get("timings") or {}).get("total"),
+            "peak_memory_mb": run.get("peak_memory_mb"),
+        }
+
+    def overlay_path(self, item: BatchItem, options: Any) -> Path:
+        """Where the overlay of ``item`` is written."""
+        from imgcut import runner
+
+        return runner.output_paths(item.source, item.out_dir, options)["overlay"]
 
 
-class _RunnerPipeline:
-    """Adapter from the batch to ``imgcut.runner`` (filled in when the runner lands)."""
+def _default_options(options: Any) -> Any:
+    if options is not None:
+        return options
+    from imgcut.runner import SegmentOptions
+
+    return SegmentOptions()
 
 
 def _relative_message(message: str, item: BatchItem, roots: Sequence[Path]) -> str:
@@ -673,8 +723,8 @@ def _result_from(
     )
 
 
-def _relative_overlay(pipeline: Any, item: BatchItem, out_root: Path) -> str:
-    path = pipeline.overlay_path(item)
+def _relative_overlay(pipeline: Any, item: BatchItem, options: Any, out_root: Path) -> str:
+    path = pipeline.overlay_path(item, options)
     try:
         return Path(path).relative_to(out_root).as_posix()
     except ValueError:
@@ -856,8 +906,9 @@ def run_batch(
     pipeline : object, optional
         The per-image pipeline (for tests and extensions): needs ``compute(source, options)``,
         ``write(computed, item, options, *, extra) -> {"regions", "objects"}``,
-        ``up_to_date(item, options) -> dict | None`` and ``overlay_path(item) -> Path``, and must
-        be picklable. Default: ``imgcut.runner``.
+        ``up_to_date(item, options) -> dict | None`` and
+        ``overlay_path(item, options) -> Path``, and must be picklable. Default:
+        `RunnerPipeline` (``imgcut.runner``).
 
     Returns
     -------
@@ -884,7 +935,9 @@ def run_batch(
     if workers is not None and workers < 1:
         raise ValueError(f"workers must be a positive integer, got {workers}")
     n_workers = 0 if scheduler else (workers or os.cpu_count() or 1)
-    pipeline = pipeline if pipeline is not None else _default_pipeline()
+    if pipeline is None:
+        pipeline = RunnerPipeline()
+        options = _default_options(options)
     out_root = Path(out_dir).resolve()
     in_root = Path(input_dir).resolve()
     items = plan_batch(in_root, out_root, patterns=patterns)
@@ -896,6 +949,7 @@ def run_batch(
             f"cannot create output folder {str(out_root)!r}: {_one_line(exc)}"
         ) from exc
 
+    _remove_partials(out_root)
     recorder = _Recorder(items, out_root)
     counts = dict.fromkeys(_STATUSES, 0)
     peaks: dict[str, float] = {}
@@ -914,7 +968,7 @@ def run_batch(
         emit(result)
 
     def finish(item: BatchItem, outcome: _Outcome) -> None:
-        overlay = _relative_overlay(pipeline, item, out_root) if outcome.ok else ""
+        overlay = _relative_overlay(pipeline, item, options, out_root) if outcome.ok else ""
         record(_result_from(item, outcome, overlay, roots))
 
     emit(None)
@@ -938,7 +992,7 @@ def run_batch(
                     objects=previous.get("objects"),
                     seconds=previous.get("seconds"),
                     peak_memory_mb=previous.get("peak_memory_mb"),
-                    overlay=_relative_overlay(pipeline, item, out_root),
+                    overlay=_relative_overlay(pipeline, item, options, out_root),
                 )
             )
         else:
@@ -970,6 +1024,20 @@ def run_batch(
         report.gallery_path = write_gallery(out_root, results)
     _write_batch_record(report, options, patterns, force)
     return report
+
+
+def _remove_partials(out_root: Path) -> list[Path]:
+    """Delete the hidden temporary files an interrupted atomic write left under `out_root`."""
+    from imgcut.io import PARTIAL_SUFFIX
+
+    removed = []
+    for path in out_root.rglob(f".*{PARTIAL_SUFFIX}"):
+        try:
+            path.unlink()
+            removed.append(path)
+        except OSError:  # already gone, or not ours to remove: harmless either way
+            pass
+    return removed
 
 
 def _options_dict(options: Any) -> Any:

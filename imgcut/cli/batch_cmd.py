@@ -1,1 +1,305 @@
-"""Command module placeholder: its owner registers commands on `imgcut.cli._app.app`."""
+"""``imgcut batch``: segment every image under a folder (parsing, progress and messages only).
+
+The work is done by `imgcut.batch.run_batch`; this module turns options into its arguments, shows
+one progress bar for the whole batch (or plain lines when stdout is not a terminal) and maps the
+outcome to an exit code: 0 all done, 1 some image failed, 2 bad usage, 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+
+from imgcut.cli._app import app
+
+__all__ = ["batch_command"]
+
+
+class _Progress:
+    """One progress display for the whole batch: a rich bar on a terminal, else plain lines."""
+
+    def __init__(self, *, quiet: bool, stream: Any = None) -> None:
+        self.quiet = quiet
+        self.stream = stream or sys.stdout
+        self.live = (not quiet) and self.stream.isatty()
+        self._bar = None
+        self._task = None
+
+    def __enter__(self) -> _Progress:
+        if self.live:
+            from rich.console import Console
+            from rich.progress import (
+                BarColumn,
+                MofNCompleteColumn,
+                Progress,
+                TextColumn,
+                TimeElapsedColumn,
+                TimeRemainingColumn,
+            )
+
+            self._bar = Progress(
+                TextColumn("[bold]batch"),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TextColumn(
+                    "[green]{task.fields[done]} done[/] · [red]{task.fields[failed]} "
+                    "failed[/] · {task.fields[remaining]} remaining"
+                ),
+                TimeElapsedColumn(),
+                TextColumn("ETA"),
+                TimeRemainingColumn(),
+                console=Console(file=self.stream),
+                transient=False,
+            )
+            self._bar.__enter__()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._bar is not None:
+            self._bar.__exit__(*exc)
+
+    def __call__(self, event: Any) -> None:
+        if self.quiet:
+            return
+        done = event.done + event.skipped
+        if self._bar is not None:
+            if self._task is None:
+                self._task = self._bar.add_task(
+                    "batch", total=event.total, done=0, failed=0, remaining=event.total
+                )
+            self._bar.update(
+                self._task,
+                completed=event.finished,
+                done=done,
+                failed=event.failed,
+                remaining=event.remaining,
+            )
+            if event.last is not None and event.last.status == "failed":
+                self._bar.console.print(
+                    f"[red]failed[/] {event.last.path}: {event.last.error}",
+                    markup=True,
+                    highlight=False,
+                    soft_wrap=True,
+                )
+            return
+        last = event.last
+        if last is None:
+            print(f"batch: {event.total} images", file=self.stream, flush=True)
+            return
+        width = len(str(event.total))
+        detail = (
+            last.error
+            if last.status == "failed"
+            else (
+                f"{last.seconds:.1f} s"
+                if last.seconds is not None and last.status == "done"
+                else ""
+            )
+        )
+        print(
+            f"[{event.finished:>{width}}/{event.total}] {last.status:<7} {last.path}"
+            + (f"  ({detail})" if detail else ""),
+            file=self.stream,
+            flush=True,
+        )
+
+
+def _fail(message: str, code: int) -> typer.Exit:
+    first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
+    typer.echo(f"imgcut batch: error: {first}", err=True)
+    return typer.Exit(code)
+
+
+_G_BATCH = "Batch"
+
+# Parameters of `imgcut segment` that concern one run of one file, not the segmentation: batch
+# has its own (--out, --force, --quiet) or none. Every other segment parameter is reused as is,
+# so the two commands always share option names, defaults, help and parsing.
+_SEGMENT_ONLY = frozenset({"image", "out", "overwrite", "quiet", "as_json", "debug"})
+
+
+def _batch_command(
+    input_dir: Annotated[
+        Path,
+        typer.Argument(
+            help="Folder searched recursively for TIFF, PNG, JPEG and BMP images.",
+            show_default=False,
+        ),
+    ],
+    out: Annotated[
+        Path,
+        typer.Option(
+            "--out",
+            "-o",
+            rich_help_panel=_G_BATCH,
+            help="Output folder; the input tree is mirrored under it (created if missing).",
+            show_default=False,
+        ),
+    ],
+    glob: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--glob",
+            rich_help_panel=_G_BATCH,
+            metavar="PATTERN",
+            help="Select inputs by pattern (repeatable). Without '/' it matches file names at "
+            "any depth ('*.tif'); with '/' it is relative to INPUT_DIR ('plate1/**/*w1*.tif').",
+            show_default=False,
+        ),
+    ] = None,
+    workers: Annotated[
+        int | None,
+        typer.Option(
+            "--workers",
+            "-j",
+            min=1,
+            rich_help_panel=_G_BATCH,
+            help="Local worker processes (default: the number of CPU cores); each uses "
+            "single-threaded BLAS.",
+            show_default=False,
+        ),
+    ] = None,
+    scheduler: Annotated[
+        str | None,
+        typer.Option(
+            "--scheduler",
+            rich_help_panel=_G_BATCH,
+            metavar="ADDRESS",
+            help="Address of a running dask.distributed scheduler (tcp://host:8786): its "
+            "workers compute, this process writes every file. Needs the 'dask' extra.",
+            show_default=False,
+        ),
+    ] = None,
+    force: Annotated[
+        bool,
+        typer.Option(
+            "--force",
+            rich_help_panel=_G_BATCH,
+            help="Recompute images whose outputs are already up to date.",
+        ),
+    ] = False,
+    gallery: Annotated[
+        bool,
+        typer.Option(
+            "--gallery/--no-gallery",
+            rich_help_panel=_G_BATCH,
+            help="Write index.html with a thumbnail of every overlay and its numbers.",
+        ),
+    ] = True,
+    quiet: Annotated[
+        bool,
+        typer.Option("--quiet", "-q", help="Print only errors and the final line."),
+    ] = False,
+    debug: Annotated[
+        bool, typer.Option("--debug", help="Show the full traceback of an error.")
+    ] = False,
+    **segment_params: Any,
+) -> None:
+    """Segment every image under INPUT_DIR and write, for each, what `imgcut segment` writes.
+
+    Runs in parallel on local processes or on a dask cluster; a rerun skips images that are
+    already done with the same options; summary.csv and index.html describe the batch.
+    """
+    from imgcut.batch import run_batch
+
+    try:
+        options = _options_from(segment_params)
+        with _Progress(quiet=quiet) as view:
+            report = run_batch(
+                input_dir,
+                out,
+                options,
+                patterns=glob,
+                workers=workers,
+                scheduler=scheduler,
+                force=force,
+                gallery=gallery,
+                progress=view,
+            )
+    except KeyboardInterrupt:  # only when the batch could not even record its state
+        if debug:
+            raise
+        raise _fail("interrupted", 130) from None
+    except (ValueError, ImportError) as exc:  # bad options or folders, dask missing
+        if debug:
+            raise
+        raise _fail(str(exc), 2) from None
+    except OSError as exc:  # the scheduler cannot be reached, the disk is full, ...
+        if debug:
+            raise
+        raise _fail(f"{type(exc).__name__}: {exc}", 1) from None
+
+    counts = (
+        f"{report.count('done')} done, {report.count('skipped')} already up to date, "
+        f"{report.count('failed')} failed"
+    )
+    if report.interrupted:
+        typer.echo(f"imgcut batch: interrupted after {counts}; rerun to finish", err=True)
+    else:
+        where = f"{report.summary_path}"
+        if report.gallery_path is not None:
+            where += f", {report.gallery_path.name}"
+        typer.echo(f"{counts} in {report.seconds:.1f} s; see {where}")
+    raise typer.Exit(report.exit_code)
+
+
+def _options_from(params: dict[str, Any]) -> Any:
+    """SegmentOptions from the segment parameters, parsed exactly as `imgcut segment` does."""
+    import dataclasses
+
+    from imgcut.cli import segment_cmd as seg
+    from imgcut.runner import OptionError, SegmentOptions
+
+    converters = {
+        "regions": ("n_regions", seg._parse_regions),
+        "channel": ("channel", seg._parse_channel),
+        "plane": ("plane", seg._parse_plane),
+        "memory_budget": ("memory_budget", lambda v: None if v is None else seg._gib(v)),
+    }
+    fields = {f.name for f in dataclasses.fields(SegmentOptions)}
+    kwargs = {}
+    try:
+        for name, value in params.items():
+            if name in converters:
+                field_name, convert = converters[name]
+                kwargs[field_name] = convert(value)
+            elif name in fields:
+                kwargs[name] = value
+        return SegmentOptions(**kwargs)
+    except seg._UsageProblem as exc:
+        raise ValueError(str(exc)) from None
+    except OptionError as exc:
+        raise ValueError(f"{seg._FLAGS.get(exc.option, exc.option)} {exc.problem}") from None
+
+
+def _build_command() -> Any:
+    """`_batch_command` with every segmentation option of `imgcut segment` appended."""
+    import inspect
+
+    from imgcut.cli.segment_cmd import segment_command
+
+    own = inspect.signature(_batch_command, eval_str=True)
+    params = [p for p in own.parameters.values() if p.kind is not p.VAR_KEYWORD]
+    taken = {p.name for p in params}
+    shared = [
+        p.replace(kind=inspect.Parameter.KEYWORD_ONLY)
+        for p in inspect.signature(segment_command, eval_str=True).parameters.values()
+        if p.name not in _SEGMENT_ONLY and p.name not in taken
+    ]
+    params = [p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in params] + shared
+
+    def batch_command(**kwargs: Any) -> None:
+        own_kwargs = {k: v for k, v in kwargs.items() if k in taken}
+        segment_kwargs = {k: v for k, v in kwargs.items() if k not in taken}
+        _batch_command(**own_kwargs, **segment_kwargs)
+
+    batch_command.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
+    batch_command.__annotations__ = {p.name: p.annotation for p in params}
+    batch_command.__doc__ = _batch_command.__doc__
+    return batch_command
+
+
+batch_command = app.command("batch", no_args_is_help=True)(_build_command())
