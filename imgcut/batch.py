@@ -804,6 +804,17 @@ def _run_local(
     return interrupted
 
 
+def _import_distributed() -> tuple[Any, Any]:
+    try:
+        from distributed import Client, as_completed
+    except ImportError as exc:
+        raise ImportError(
+            "--scheduler needs dask.distributed, which is not installed; "
+            "install it with: pip install 'imgcut[dask]'"
+        ) from exc
+    return Client, as_completed
+
+
 def _run_dask(
     todo: list[BatchItem],
     options: Any,
@@ -812,13 +823,7 @@ def _run_dask(
     finish: Callable[[BatchItem, _Outcome], None],
 ) -> bool:
     """Compute `todo` on a dask.distributed cluster, write here; return True when interrupted."""
-    try:
-        from distributed import Client, as_completed
-    except ImportError as exc:
-        raise ImportError(
-            "--scheduler needs dask.distributed, which is not installed; "
-            "install it with: pip install 'imgcut[dask]'"
-        ) from exc
+    Client, as_completed = _import_distributed()
     client = Client(scheduler, set_as_default=False, timeout=30)
     interrupted = False
     futures = {}
@@ -935,6 +940,8 @@ def run_batch(
     if workers is not None and workers < 1:
         raise ValueError(f"workers must be a positive integer, got {workers}")
     n_workers = 0 if scheduler else (workers or os.cpu_count() or 1)
+    if scheduler:
+        _import_distributed()  # fail before any work when dask is missing
     if pipeline is None:
         pipeline = RunnerPipeline()
         options = _default_options(options)

@@ -1,0 +1,149 @@
+"""Tests of the ``imgcut batch`` command: options, exit codes, progress lines, Dask."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import typer
+from PIL import Image
+from typer.testing import CliRunner
+
+from imgcut.batch import read_summary
+from imgcut.cli import app
+
+runner = CliRunner()
+
+
+def _folder(root: Path, n: int = 3, *, bad: bool = False) -> Path:
+    src = root / "in"
+    (src / "sub").mkdir(parents=True)
+    rng = np.random.default_rng(0)
+    for i in range(n):
+        img = np.full((12, 16), 30.0)
+        img[:, 8:] = 200
+        img += rng.uniform(0, 8, img.shape)
+        where = src / "sub" if i % 2 else src
+        Image.fromarray(img.astype(np.uint8)).save(where / f"f{i}.png")
+    if bad:
+        (src / "broken.png").write_bytes(b"\x89PNG\r\n\x1a\n" + b"\x00" * 10)
+    return src
+
+
+FAST = ["-k", "2", "--radius", "2"]
+
+
+def test_segment_options_are_shared_not_copied():
+    """Every segmentation option of `segment` exists in `batch` with the same flags and default."""
+    command = typer.main.get_command(app)
+    seg = {p.name: p for p in command.commands["segment"].params}
+    bat = {p.name: p for p in command.commands["batch"].params}
+    own_to_segment = {"image", "out", "overwrite", "quiet", "as_json", "debug"}
+    for name, param in seg.items():
+        if name in own_to_segment:
+            continue
+        assert name in bat, f"batch lacks segment's {param.opts}"
+        assert bat[name].opts == param.opts and bat[name].default == param.default
+        assert getattr(bat[name], "help", None) == getattr(param, "help", None)
+    for flag in ("--channel", "--plane", "--mode", "--regions"):
+        assert any(flag in p.opts for p in bat.values())
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["nowhere", "--out", "o"], "does not exist or is not a folder"),
+        (["{src}", "--out", "o", "-k", "0"], "--regions must be a count"),
+        (["{src}", "--out", "o", "--radius", "-1"], "--radius must be > 0"),
+        (["{src}", "--out", "o", "--glob", "/abs/*.tif"], "relative to the input folder"),
+    ],
+)
+def test_usage_errors_exit_2_with_one_line(tmp_path, monkeypatch, args, message):
+    src = _folder(tmp_path, 1)
+    monkeypatch.chdir(tmp_path)
+    result = runner.invoke(app, ["batch", *[a.format(src=src) for a in args]])
+    assert result.exit_code == 2, result.output
+    assert message in result.output
+    assert not (tmp_path / "o" / "summary.csv").exists()
+
+
+def test_workers_below_one_is_a_usage_error(tmp_path):
+    result = runner.invoke(app, ["batch", str(_folder(tmp_path, 1)), "--out", "o", "-j", "0"])
+    assert result.exit_code == 2
+
+
+def test_missing_dask_is_one_clear_line(tmp_path, monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed → ImportError
+    src = _folder(tmp_path, 1)
+    result = runner.invoke(
+        app, ["batch", str(src), "--out", str(tmp_path / "o"), "--scheduler", "tcp://x:1"]
+    )
+    assert result.exit_code == 2
+    assert "needs dask.distributed" in result.output and "pip install" in result.output
+    assert "Traceback" not in result.output
+
+
+def test_plain_progress_lines_summary_and_exit_code(tmp_path):
+    src = _folder(tmp_path, 3, bad=True)
+    out = tmp_path / "out"
+    result = runner.invoke(app, ["batch", str(src), "--out", str(out), *FAST, "-j", "2"])
+    assert result.exit_code == 1, result.output  # one image failed
+    lines = result.output.splitlines()
+    assert lines[0] == "batch: 4 images"  # not a terminal: plain lines, no bar
+    assert sum(line.startswith("[") and "/4] done" in line for line in lines) == 3
+    assert any("/4] failed  broken.png" in line for line in lines)
+    assert "3 done, 0 already up to date, 1 failed" in lines[-1]
+    rows = {r.path: r for r in read_summary(out)}
+    assert rows["broken.png"].status == "failed" and rows["sub/f1.png"].regions == 2
+
+    again = runner.invoke(app, ["batch", str(src), "--out", str(out), *FAST, "--quiet"])
+    assert again.exit_code == 1
+    assert again.output.splitlines()[-1].startswith("0 done, 3 already up to date, 1 failed")
+    assert len(again.output.splitlines()) == 1  # quiet: the final line only
+
+
+@pytest.mark.slow
+def test_dask_cluster_gives_the_same_files_as_local_workers(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    src = _folder(tmp_path, 3)
+    local = runner.invoke(app, ["batch", str(src), "--out", str(tmp_path / "local"), *FAST])
+    assert local.exit_code == 0, local.output
+    with distributed.LocalCluster(
+        n_workers=2,
+        threads_per_worker=1,
+        processes=False,
+        protocol="tcp",
+        host="127.0.0.1",
+        dashboard_address=None,
+    ) as cluster:
+        remote = runner.invoke(
+            app,
+            [
+                "batch",
+                str(src),
+                "--out",
+                str(tmp_path / "dask"),
+                *FAST,
+                "--scheduler",
+                cluster.scheduler_address,
+            ],
+        )
+    assert remote.exit_code == 0, remote.output
+    names = sorted(
+        p.relative_to(tmp_path / "local").as_posix() for p in (tmp_path / "local").rglob("f*.*")
+    )
+    assert len(names) == 3 * 4
+    for name in names:
+        a, b = tmp_path / "local" / name, tmp_path / "dask" / name
+        if name.endswith(".json"):
+            ra, rb = json.loads(a.read_text()), json.loads(b.read_text())
+            assert ra["result"] == rb["result"] and ra["input"]["sha256"] == rb["input"]["sha256"]
+            assert ra["options_fingerprint"] == rb["options_fingerprint"]
+            assert rb["run"]["worker"].startswith("tcp://127.0.0.1:")
+        else:  # labels, overlay, region table: byte for byte
+            assert a.read_bytes() == b.read_bytes(), name
+    record = json.loads((tmp_path / "dask" / "batch.json").read_text())
+    assert record["scheduler"].startswith("tcp://127.0.0.1:") and record["done"] == 3
