@@ -166,7 +166,8 @@ def compute_features(
     ValueError
         Invalid image (see :func:`validate_image`), unknown ``color`` (valid: "auto", "lab",
         "channels"), ``color="lab"`` without 3 channels, percentiles not
-        ``0 <= low < high <= 100``, non-positive or non-finite edge scales.
+        ``0 <= low < high <= 100``, non-positive or non-finite edge scales, a float RGB image
+        outside ``[0, 1]`` with ``percentiles=None``.
 
     Notes
     -----
@@ -211,7 +212,7 @@ def compute_features(
     pct = _check_percentiles(percentiles)
     scales = _check_edge_scales(edge_scales)
 
-    data = arr.astype(np.float64, copy=False)
+    data = arr.astype(np.float64)  # a private copy: normalised in place below
     if data.ndim == 2:
         data = data[:, :, None]
     n_channels = data.shape[2]
@@ -225,6 +226,11 @@ def compute_features(
 
     if use_lab:
         rgb, low, high = _normalise(data, arr.dtype, pct, joint=True)
+        if pct is None and (rgb.min() < 0.0 or rgb.max() > 1.0):
+            raise ValueError(
+                "a float RGB image must lie in [0, 1] when percentiles=None "
+                f"(got values in [{rgb.min():g}, {rgb.max():g}]); rescale it or use percentiles"
+            )
         values = _rgb_to_scaled_lab(rgb)
         kind = "lab"
     else:
@@ -280,7 +286,7 @@ def _dtype_range(dtype: np.dtype) -> tuple[float, float]:
 def _normalise(
     data: np.ndarray, dtype: np.dtype, pct: tuple[float, float] | None, *, joint: bool
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Map intensities to [0, 1] per channel (or jointly); returns values, low, high."""
+    """Map intensities to [0, 1] per channel (or jointly), in place; returns values, low, high."""
     n_channels = data.shape[2]
     if pct is None:
         if np.issubdtype(dtype, np.integer):
@@ -288,7 +294,7 @@ def _normalise(
             low = np.full(n_channels, lo)
             high = np.full(n_channels, hi)
         else:  # floats used as they are
-            return data.copy(), np.zeros(n_channels), np.ones(n_channels)
+            return data, np.zeros(n_channels), np.ones(n_channels)
     elif joint:
         q = np.percentile(data, pct)
         low = np.full(n_channels, q[0])
@@ -302,7 +308,9 @@ def _normalise(
     tiny = 64.0 * np.finfo(np.float64).eps * np.maximum(np.abs(low), np.abs(high))
     constant = span <= tiny
     scale = np.where(constant, 0.0, 1.0 / np.where(constant, 1.0, span))
-    values = (data - low) * scale
+    values = data  # in place: compute_features owns this copy
+    values -= low
+    values *= scale
     np.clip(values, 0.0, 1.0, out=values)
     return values, low, high
 
@@ -316,15 +324,23 @@ def _rgb_to_scaled_lab(rgb: np.ndarray) -> np.ndarray:
 
 
 def _edge_strength(values: np.ndarray, scales: tuple[float, ...]) -> np.ndarray:
-    """max over scales of s * sqrt(sum_c |grad(G_s * v_c)|^2); float64, >= 0."""
-    height, width, _ = values.shape
+    """max over scales of s * sqrt(sum_c |grad(G_s * v_c)|^2); float64, >= 0.
+
+    One channel at a time, so the working memory is a few (H, W) arrays whatever C is.
+    """
+    height, width, n_channels = values.shape
     edges = np.zeros((height, width), dtype=np.float64)
+    g2 = np.empty((height, width), dtype=np.float64)
+    grad = np.empty((height, width), dtype=np.float64)
     for s in scales:
-        sig = (s, s, 0.0)  # no smoothing across channels
-        gy = ndimage.gaussian_filter(values, sig, order=(1, 0, 0), mode="reflect")
-        gx = ndimage.gaussian_filter(values, sig, order=(0, 1, 0), mode="reflect")
-        g2 = np.einsum("ijc,ijc->ij", gy, gy) + np.einsum("ijc,ijc->ij", gx, gx)
-        g = np.sqrt(g2)
-        g *= s  # Lindeberg 1998, gamma = 1 normalised derivative
-        np.maximum(edges, g, out=edges)
+        g2.fill(0.0)
+        for c in range(n_channels):
+            channel = values[:, :, c]
+            for order in ((1, 0), (0, 1)):  # d/dy, d/dx of the Gaussian-smoothed channel
+                ndimage.gaussian_filter(channel, s, order=order, mode="reflect", output=grad)
+                np.multiply(grad, grad, out=grad)
+                g2 += grad
+        np.sqrt(g2, out=g2)
+        g2 *= s  # Lindeberg 1998, gamma = 1 normalised derivative
+        np.maximum(edges, g2, out=edges)
     return edges

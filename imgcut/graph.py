@@ -24,10 +24,13 @@ DEFAULT_RADIUS = 5.0
 DEFAULT_MEMORY_BUDGET = 4 * 1024**3  # bytes (4 GiB)
 # sigma_distance = _SIGMA_X_PER_RADIUS * radius when not given (see affinity_graph Notes).
 _SIGMA_X_PER_RADIUS = 0.8
-# Working memory of the builder per pixel, on top of the stored CSR arrays: two int64 row
-# cursors, int32 flat/rank map, the edge map and per-offset temporaries (exponent, weights,
-# running maximum, positions). Measured with tracemalloc (benchmarks/bench_graph.py).
-_WORK_BYTES_PER_PIXEL = 96
+# Working memory of the builder, on top of the stored CSR arrays: per pixel an int64 row
+# start, an int32 node number and count temporaries, plus two validity bit sets and their
+# popcount temporaries per 64 half-plane offsets; per-block temporaries are a constant.
+# Measured with tracemalloc (38 bytes/pixel at r = 5, 110 at r = 12).
+_WORK_BYTES_PER_PIXEL = 24
+_WORK_BYTES_PER_PIXEL_WORD = 24
+_WORK_BYTES_FIXED = 4 * 1024**2
 _INT32_MAX = np.iinfo(np.int32).max
 # Pixels per block of rows in the fill loop: the block's rows of the CSR arrays (about
 # 80 entries × 12 bytes per pixel at r = 5) then stay in the CPU cache while all offsets write
@@ -97,9 +100,11 @@ def estimate_graph_memory(shape, radius: float, mask=None) -> tuple[int, int]:
         Exact number of stored entries of ``W``: ordered pairs ``(i, j)``, ``i != j``, of
         graph pixels with ``‖X_i − X_j‖ <= radius``.
     bytes : int
-        Estimated peak memory of :func:`affinity_graph`: the CSR arrays (8-byte values,
-        4- or 8-byte indices, ``n + 1`` row pointers) plus about
-        ``_WORK_BYTES_PER_PIXEL`` bytes of working memory per pixel.
+        Estimated peak memory of :func:`affinity_graph` (not counting the features): the
+        CSR arrays (8-byte values, 4-byte indices — 8-byte beyond 2³¹ − 1 entries —,
+        ``n + 1`` row pointers) plus the builder's working memory, about
+        ``24 + 24 · ceil(K / 64)`` bytes per pixel for ``K`` half-plane offsets (48 bytes per
+        pixel while K <= 64, i.e. r < 6.4) and 4 MiB.
 
     Raises
     ------
@@ -135,7 +140,7 @@ def estimate_graph_memory(shape, radius: float, mask=None) -> tuple[int, int]:
             ri, rj = rects
             half += int(np.count_nonzero(m[ri] & m[rj]))
         nnz = 2 * half
-    return nnz, _peak_bytes(nnz, n, height * width)
+    return nnz, _peak_bytes(nnz, n, height * width, len(offsets))
 
 
 def affinity_graph(
@@ -371,9 +376,11 @@ def _line_samples(dy: int, dx: int) -> list[tuple[int, int]]:
     ]
 
 
-def _peak_bytes(nnz: int, n_nodes: int, n_pixels: int) -> int:
+def _peak_bytes(nnz: int, n_nodes: int, n_pixels: int, n_offsets: int) -> int:
     idx = 4 if max(nnz, n_nodes) <= _INT32_MAX else 8
-    return int(nnz * (8 + idx) + (n_nodes + 1) * idx + n_pixels * _WORK_BYTES_PER_PIXEL)
+    n_words = max(1, -(-n_offsets // 64))
+    work = n_pixels * (_WORK_BYTES_PER_PIXEL + _WORK_BYTES_PER_PIXEL_WORD * n_words)
+    return int(nnz * (8 + idx) + (n_nodes + 1) * idx + work + _WORK_BYTES_FIXED)
 
 
 # --------------------------------------------------------------------------- σ defaults

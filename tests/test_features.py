@@ -187,6 +187,8 @@ def test_bad_options():
     for scales in [(), (0.0,), (-1.0,), (np.inf,), 0]:
         with pytest.raises(ValueError, match="edge_scales"):
             compute_features(img, edge_scales=scales)
+    with pytest.raises(ValueError, match=r"must lie in \[0, 1\]"):
+        compute_features(np.full((4, 4, 3), 2.0), percentiles=None)
 
 
 # --------------------------------------------------------------------------- edges
