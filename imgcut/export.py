@@ -327,8 +327,10 @@ def region_table(labels: np.ndarray, image: np.ndarray | None = None) -> dict[st
     dict of column name → 1-D array
         ``label``, ``area`` (pixels), ``centroid_row``, ``centroid_col``,
         ``bbox_min_row``, ``bbox_min_col``, ``bbox_max_row``, ``bbox_max_col`` (max
-        exclusive, as in slicing), ``perimeter`` (pixels), then ``mean_intensity`` for one
-        channel or ``mean_intensity_0`` … ``mean_intensity_{C-1}`` for several.
+        exclusive, as in slicing), ``perimeter`` (pixels), ``eccentricity`` (of the ellipse
+        with the region's second moments: 0 circle, → 1 elongated), then with an image
+        ``mean_intensity`` and ``integrated_intensity`` (sum over the region) for one
+        channel, or ``mean_intensity_0`` …, ``integrated_intensity_0`` … for several.
 
     Notes
     -----
@@ -346,7 +348,7 @@ def region_table(labels: np.ndarray, image: np.ndarray | None = None) -> dict[st
     from skimage.measure import regionprops_table
 
     labels = np.asarray(labels)
-    props = ["label", "area", "centroid", "bbox", "perimeter"]
+    props = ["label", "area", "centroid", "bbox", "perimeter", "eccentricity"]
     intensity = None
     if image is not None:
         intensity = np.asarray(image)
@@ -367,13 +369,18 @@ def region_table(labels: np.ndarray, image: np.ndarray | None = None) -> dict[st
         "bbox_max_row": raw["bbox-2"].astype(np.int64),
         "bbox_max_col": raw["bbox-3"].astype(np.int64),
         "perimeter": raw["perimeter"],
+        "eccentricity": raw["eccentricity"],
     }
     if intensity is not None:
-        if intensity.ndim == 2:
-            table["mean_intensity"] = raw["intensity_mean"]
-        else:
-            for c in range(intensity.shape[2]):
-                table[f"mean_intensity_{c}"] = raw[f"intensity_mean-{c}"]
+        flat = labels.ravel()
+        idx = table["label"]
+        planes = [intensity] if intensity.ndim == 2 else list(np.moveaxis(intensity, -1, 0))
+        for c, plane in enumerate(planes):
+            suffix = "" if intensity.ndim == 2 else f"_{c}"
+            key = "intensity_mean" if intensity.ndim == 2 else f"intensity_mean-{c}"
+            table[f"mean_intensity{suffix}"] = raw[key]
+            sums = np.bincount(flat, weights=plane.ravel(), minlength=int(flat.max()) + 1)
+            table[f"integrated_intensity{suffix}"] = sums[idx]
     return table
 
 

@@ -32,7 +32,7 @@ from typing import Any
 import numpy as np
 
 import imgcut
-from imgcut._errors import OutputExistsError, OutputFolderError
+from imgcut._errors import ImageReadError, OutputExistsError, OutputFolderError
 from imgcut.export import LABEL_FORMATS, output_names, record_to_json, render_outputs
 from imgcut.io import DEFAULT_MAX_PIXELS, atomic_write, read_image, stale_partials
 
@@ -41,6 +41,8 @@ __all__ = [
     "METHODS",
     "MODES",
     "KWAY_METHODS",
+    "SMALL_OBJECTS",
+    "FOREGROUNDS",
     "AUTO_REGION_CAP",
     "OptionError",
     "SegmentOptions",
@@ -60,9 +62,13 @@ __all__ = [
 METHODS = ("recursive", "kway")
 #: Affinity cues: intensity/colour similarity, intervening contour, or their product.
 CUES = ("combined", "intensity", "contour")
-#: What the labels mean: regions tiling the image. (An "objects" mode for fluorescence
-#: nuclei on background is planned; it will be added here and passed to ``segment``.)
-MODES = ("regions",)
+#: What the labels mean: ``regions`` tile the whole image (:func:`imgcut.segment.segment`);
+#: ``objects`` are bright objects on a dark background, label 0
+#: (:func:`imgcut.objects.segment_objects`, fluorescence nuclei).
+MODES = ("regions", "objects")
+#: Objects mode: what happens to debris below min_area, and the foreground threshold method.
+SMALL_OBJECTS = ("drop", "merge")
+FOREGROUNDS = ("ncut", "otsu")
 #: k-way assignment of eigenvector rows to classes (method="kway").
 KWAY_METHODS = ("discretize", "kmeans")
 #: Region cap of the automatic count (n_regions=None): the max_ncut threshold normally
@@ -100,12 +106,17 @@ def _solvers() -> tuple[str, ...]:
 class SegmentOptions:
     """Every choice that shapes the outputs of one image (and so its fingerprint).
 
-    Segmentation (passed to :func:`imgcut.segment.segment`, which documents each): ``n_regions``
-    (None = automatic: split while a cut below ``max_ncut`` exists, up to `AUTO_REGION_CAP`),
-    ``max_ncut`` (recursive method only), ``method``, ``kway_method``, ``radius``, ``cue``,
-    ``sigma_feature``, ``sigma_distance``, ``sigma_edge``, ``min_area``, ``connected``,
-    ``solver``, ``tol``, ``maxiter``, ``seed``, ``n_eigenvectors``, ``memory_budget`` (bytes;
-    None = the library default), ``mode``.
+    ``mode="regions"`` (passed to :func:`imgcut.segment.segment`, which documents each):
+    ``n_regions`` (None = automatic: split while a cut below ``max_ncut`` exists, up to
+    `AUTO_REGION_CAP`), ``max_ncut`` (recursive method only), ``method``, ``kway_method``,
+    ``radius``, ``cue``, ``sigma_feature``, ``sigma_distance``, ``sigma_edge``, ``min_area``,
+    ``connected``, ``solver``, ``tol``, ``maxiter``, ``seed``, ``n_eigenvectors``,
+    ``memory_budget`` (bytes).
+    ``mode="objects"`` (passed to :func:`imgcut.objects.segment_objects`): ``object_diameter``,
+    ``pixel_size``, ``min_area``, ``small_objects``, ``exclude_border``, ``foreground``,
+    ``max_ncut``, ``radius``, ``seed``; the other segmentation fields are not used.
+    None always means the library's default for the mode (e.g. radius 5 for regions, 3 for
+    objects).
     Reading (:func:`imgcut.io.read_image`): ``channel``, ``plane``, ``max_pixels``.
     Export (:mod:`imgcut.export`): ``label_format``, ``fill``, ``masks``, ``eigenvectors``.
 
@@ -128,7 +139,7 @@ class SegmentOptions:
     max_ncut: float | None = None
     method: str = "recursive"
     kway_method: str = "discretize"
-    radius: float = 5.0
+    radius: float | None = None
     cue: str = "combined"
     sigma_feature: float | None = None
     sigma_distance: float | None = None
@@ -142,6 +153,11 @@ class SegmentOptions:
     n_eigenvectors: int | None = None
     memory_budget: int | None = None
     mode: str = "regions"
+    object_diameter: float | None = None
+    pixel_size: float | None = None
+    exclude_border: bool = False
+    small_objects: str = "drop"
+    foreground: str = "ncut"
     channel: tuple[int, ...] | None = None
     plane: int | str | None = None
     max_pixels: int = DEFAULT_MAX_PIXELS
@@ -157,29 +173,40 @@ class SegmentOptions:
         _check(self)
 
     def segment_kwargs(self) -> dict[str, Any]:
-        """Keyword arguments for :func:`imgcut.segment.segment`."""
-        kwargs: dict[str, Any] = {
-            "n_regions": AUTO_REGION_CAP if self.n_regions is None else self.n_regions,
-            "method": self.method,
-            "kway_method": self.kway_method,
-            "radius": self.radius,
-            "cue": self.cue,
-            "sigma_feature": self.sigma_feature,
-            "sigma_distance": self.sigma_distance,
-            "sigma_edge": self.sigma_edge,
-            "max_ncut": self.max_ncut,
-            "min_area": self.min_area,
-            "connected": self.connected,
-            "solver": self.solver,
-            "tol": self.tol,
-            "maxiter": self.maxiter,
-            "seed": self.seed,
-            "n_eigenvectors": self.n_eigenvectors,
-        }
-        if self.memory_budget is not None:
-            kwargs["memory_budget"] = self.memory_budget
-        if self.mode != "regions":
-            kwargs["mode"] = self.mode
+        """Keyword arguments for the library function of the mode: :func:`imgcut.segment.segment`
+        (regions) or :func:`imgcut.objects.segment_objects` (objects). Unset (None) options
+        are left out, so the library's defaults apply."""
+        if self.mode == "objects":
+            kwargs: dict[str, Any] = {
+                "object_diameter": self.object_diameter,
+                "pixel_size": self.pixel_size,
+                "small_objects": self.small_objects,
+                "exclude_border": self.exclude_border,
+                "foreground": self.foreground,
+                "seed": self.seed,
+            }
+            optional = {"min_area": self.min_area, "max_ncut": self.max_ncut,
+                        "radius": self.radius}
+        else:
+            kwargs = {
+                "n_regions": AUTO_REGION_CAP if self.n_regions is None else self.n_regions,
+                "method": self.method,
+                "kway_method": self.kway_method,
+                "cue": self.cue,
+                "sigma_feature": self.sigma_feature,
+                "sigma_distance": self.sigma_distance,
+                "sigma_edge": self.sigma_edge,
+                "max_ncut": self.max_ncut,
+                "min_area": self.min_area,
+                "connected": self.connected,
+                "solver": self.solver,
+                "tol": self.tol,
+                "maxiter": self.maxiter,
+                "seed": self.seed,
+                "n_eigenvectors": self.n_eigenvectors,
+            }
+            optional = {"radius": self.radius, "memory_budget": self.memory_budget}
+        kwargs.update({k: v for k, v in optional.items() if v is not None})
         return kwargs
 
     def to_dict(self) -> dict[str, Any]:
@@ -232,12 +259,12 @@ def _check(o: SegmentOptions) -> None:
              "in (0, 2] (normalized cut values lie in [0, 2])", o.max_ncut)
     choice("method", METHODS)
     choice("kway_method", KWAY_METHODS)
-    if o.max_ncut is not None:
+    if o.max_ncut is not None and o.mode == "regions":
         need(o.method == "recursive", "max_ncut", "used with method recursive only",
              o.method)
     need(isinstance(o.connected, (bool, np.bool_)), "connected", "True or False", o.connected)
-    need(number(o.radius) and np.isfinite(o.radius) and o.radius > 0, "radius",
-         "> 0 (pixels)", o.radius)
+    need(o.radius is None or (number(o.radius) and np.isfinite(o.radius) and o.radius > 0),
+         "radius", "> 0 (pixels)", o.radius)
     choice("cue", CUES)
     for name in ("sigma_feature", "sigma_distance", "sigma_edge"):
         v = getattr(o, name)
@@ -257,6 +284,24 @@ def _check(o: SegmentOptions) -> None:
     need(o.memory_budget is None or integer(o.memory_budget, 1), "memory_budget",
          "a number of bytes ≥ 1", o.memory_budget)
     choice("mode", MODES)
+    choice("small_objects", SMALL_OBJECTS)
+    choice("foreground", FOREGROUNDS)
+    for name in ("object_diameter", "pixel_size"):
+        v = getattr(o, name)
+        need(v is None or (number(v) and np.isfinite(v) and v > 0), name, "> 0", v)
+    need(isinstance(o.exclude_border, (bool, np.bool_)), "exclude_border", "True or False",
+         o.exclude_border)
+    if o.mode != "objects":
+        for name, default in (("object_diameter", None), ("pixel_size", None),
+                              ("exclude_border", False), ("small_objects", "drop"),
+                              ("foreground", "ncut")):
+            need(getattr(o, name) == default, name, "used with mode objects only",
+                 getattr(o, name))
+    else:
+        need(not o.eigenvectors, "eigenvectors", "used with mode regions only (objects "
+             "mode keeps no whole-image eigenvectors)", o.eigenvectors)
+        need(o.pixel_size is None or o.object_diameter is not None, "pixel_size",
+             "given together with object_diameter (in micrometres)", o.pixel_size)
     need(o.channel is None or (len(o.channel) > 0 and all(integer(c, 0) for c in o.channel)),
          "channel", "indices ≥ 0", o.channel)
     need(o.plane is None or o.plane == "max" or integer(o.plane, 0), "plane",
@@ -397,10 +442,15 @@ class RunReport:
 # the steps
 
 
-def _segment(image: np.ndarray, **kwargs: Any) -> Any:
+def _segment(image: np.ndarray, options: SegmentOptions) -> Any:
+    """Call the library function of the mode."""
+    if options.mode == "objects":
+        from imgcut.objects import segment_objects
+
+        return segment_objects(image, **options.segment_kwargs())
     from imgcut.segment import segment
 
-    return segment(image, **kwargs)
+    return segment(image, **options.segment_kwargs())
 
 
 def _noop(stage: str) -> None:
@@ -453,9 +503,12 @@ def compute(
     image = loaded.pixels
     h, w = image.shape[:2]
     if h * w < 2:
-        from imgcut._errors import ImageReadError
-
         raise ImageReadError(f"{source}: image is {h}×{w} pixel; segmentation needs at least 2")
+    if options.mode == "objects" and image.ndim == 3:
+        raise ImageReadError(
+            f"{source}: objects mode segments one channel and the image has "
+            f"{image.shape[2]}; choose one with --channel"
+        )
     t_read = time.perf_counter()
 
     tell("segment")
@@ -463,7 +516,7 @@ def compute(
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            seg = _segment(image, **options.segment_kwargs())
+            seg = _segment(image, options)
         except (ValueError, MemoryError) as exc:
             text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise type(exc)(f"{source}: {text}") if _plain_ctor(exc) else ValueError(

@@ -154,6 +154,12 @@ def test_region_table_matches_brute_force():
         assert t["bbox_min_col"][i] == cols[m].min() and t["bbox_max_col"][i] == cols[m].max() + 1
         for c in range(2):
             assert t[f"mean_intensity_{c}"][i] == pytest.approx(img[..., c][m].mean())
+            assert t[f"integrated_intensity_{c}"][i] == img[..., c][m].astype(float).sum()
+        # an n_r × n_c block of pixels has coordinate variances (n² − 1)/12 (variance of the
+        # discrete uniform distribution) and no covariance, so its second-moment ellipse has
+        # eccentricity sqrt(1 − var_min / var_max)
+        var = sorted([(np.ptp(rows[m]) + 1) ** 2 - 1, (np.ptp(cols[m]) + 1) ** 2 - 1])
+        assert t["eccentricity"][i] == pytest.approx(np.sqrt(1 - var[0] / var[1]), abs=1e-9)
         # reference: scikit-image's perimeter estimate of the region on its own
         assert t["perimeter"][i] == pytest.approx(sk_perimeter(m))
     assert t["area"].sum() == np.count_nonzero(lab)

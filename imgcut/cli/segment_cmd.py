@@ -43,6 +43,12 @@ _FLAGS = {
     "n_eigenvectors": "--n-eigenvectors",
     "memory_budget": "--memory-budget",
     "mode": "--mode",
+    "object_diameter": "--object-diameter",
+    "pixel_size": "--pixel-size",
+    "exclude_border": "--exclude-border",
+    "small_objects": "--small-objects",
+    "foreground": "--foreground",
+    "eigenvectors": "--eigenvectors",
     "channel": "--channel",
     "plane": "--plane",
     "max_pixels": "--max-pixels",
@@ -60,6 +66,7 @@ _STAGES = {
 _G_GRAPH = "Graph"
 _G_CUT = "Partition"
 _G_READ = "Input"
+_G_OBJ = "Objects mode (fluorescence nuclei)"
 _G_OUT = "Output"
 
 
@@ -139,9 +146,10 @@ def segment_command(
     connected: Annotated[bool, typer.Option(
         "--connected/--classes", rich_help_panel=_G_CUT,
         help="Make every region one connected patch, or keep the raw cut classes.")] = True,
-    radius: Annotated[float, typer.Option(
-        "--radius", "-r", rich_help_panel=_G_GRAPH,
-        help="Link pixels within this distance (pixels). Time and memory grow with r².")] = 5.0,
+    radius: Annotated[float | None, typer.Option(
+        "--radius", "-r", rich_help_panel=_G_GRAPH, show_default="5; 3 in objects mode",
+        help="Link pixels within this distance (pixels). Time and memory grow with r².")
+    ] = None,
     cue: Annotated[str, typer.Option(
         "--cue", rich_help_panel=_G_GRAPH,
         help="Affinity: intensity (colour/brightness similarity × distance), contour "
@@ -174,7 +182,25 @@ def segment_command(
         help="Seed of every random start; same image + options + seed = same labels.")] = 0,
     mode: Annotated[str, typer.Option(
         "--mode", rich_help_panel=_G_CUT,
-        help="What labels mean: regions (tile the whole image).")] = "regions",
+        help="What labels mean: regions (tile the whole image) or objects (bright objects "
+             "such as nuclei on a dark background, which stays label 0).")] = "regions",
+    object_diameter: Annotated[float | None, typer.Option(
+        "--object-diameter", rich_help_panel=_G_OBJ, show_default="estimated",
+        help="Typical object diameter in pixels (micrometres with --pixel-size).")] = None,
+    pixel_size: Annotated[float | None, typer.Option(
+        "--pixel-size", rich_help_panel=_G_OBJ,
+        help="Pixel size in micrometres; --object-diameter is then in micrometres.")] = None,
+    exclude_border: Annotated[bool, typer.Option(
+        "--exclude-border", rich_help_panel=_G_OBJ,
+        help="Drop objects that touch the image border.")] = False,
+    small_objects: Annotated[str, typer.Option(
+        "--small-objects", rich_help_panel=_G_OBJ,
+        help="Debris below --min-area (default 30 here): drop, or merge into the touching "
+             "object.")] = "drop",
+    foreground: Annotated[str, typer.Option(
+        "--foreground", rich_help_panel=_G_OBJ,
+        help="Foreground threshold: ncut (two-way normalized cut on intensity) or otsu.")
+    ] = "ncut",
     channel: Annotated[str | None, typer.Option(
         "--channel", rich_help_panel=_G_READ, metavar="I[,J…]",
         help="Channels to segment, 0-based (e.g. 1 or 0,2). For a plain multi-page TIFF, "
@@ -227,7 +253,10 @@ def segment_command(
                 connected=connected, solver=solver, tol=tol, maxiter=maxiter, seed=seed,
                 n_eigenvectors=n_eigenvectors,
                 memory_budget=None if memory_budget is None else _gib(memory_budget),
-                mode=mode, channel=_parse_channel(channel), plane=_parse_plane(plane),
+                mode=mode, object_diameter=object_diameter, pixel_size=pixel_size,
+                exclude_border=exclude_border, small_objects=small_objects,
+                foreground=foreground,
+                channel=_parse_channel(channel), plane=_parse_plane(plane),
                 max_pixels=max_pixels, label_format=label_format, fill=fill, masks=masks,
                 eigenvectors=eigenvectors,
             )
@@ -316,7 +345,8 @@ def _summary(report: Any, *, to_stderr: bool) -> None:
     t = report.timings
     shape = "×".join(str(s) for s in report.shape[:2])
     channels = f", {report.shape[2]} channels" if len(report.shape) == 3 else ""
-    noun = "region" if report.regions == 1 else "regions"
+    noun = "object" if report.objects is not None else "region"
+    noun += "" if report.regions == 1 else "s"
     console.print(
         f"[bold]{report.source.name}[/]: {report.regions} {noun} ({shape} pixels{channels}) "
         f"in {t['total']:.2f} s — read {t['read']:.2f}, segment {t['segment']:.2f}, "
