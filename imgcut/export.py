@@ -442,10 +442,32 @@ def record_to_json(record: Mapping[str, Any]) -> bytes:
     Examples
     --------
     >>> import numpy as np
-    >>> record_to_json({"a": np.float32(0.5), "b": float("nan")})
-    b'{\\n  "a": 0.5,\\n  "b": null\\n}\\n'
+    >>> print(record_to_json({"a": np.float32(0.5), "b": [1, float("nan")]}).decode())
+    {
+      "a": 0.5,
+      "b": [1, null]
+    }
+    <BLANKLINE>
     """
-    return (json.dumps(_jsonable(record), indent=2, allow_nan=False) + "\n").encode("utf-8")
+    return (_dumps_compact_lists(_jsonable(record)) + "\n").encode("utf-8")
+
+
+def _dumps_compact_lists(value: Any, indent: int = 2, level: int = 0) -> str:
+    """JSON with objects indented one key per line but lists of plain scalars on one line
+    (eigenvalues, residuals, shapes), which keeps a run record readable."""
+    pad, inner = " " * (indent * level), " " * (indent * (level + 1))
+    if isinstance(value, dict):
+        if not value:
+            return "{}"
+        items = [f"{inner}{json.dumps(k)}: {_dumps_compact_lists(v, indent, level + 1)}"
+                 for k, v in value.items()]
+        return "{\n" + ",\n".join(items) + "\n" + pad + "}"
+    if isinstance(value, list):
+        if all(not isinstance(v, (dict, list)) for v in value):
+            return json.dumps(value, allow_nan=False, separators=(", ", ": "))
+        items = [f"{inner}{_dumps_compact_lists(v, indent, level + 1)}" for v in value]
+        return "[\n" + ",\n".join(items) + "\n" + pad + "]"
+    return json.dumps(value, allow_nan=False)
 
 
 # --------------------------------------------------------------------------------------------

@@ -58,7 +58,7 @@ _FLAGS = {
 
 _STAGES = {
     "read": "reading",
-    "segment": "segmenting (graph, eigenvectors, cuts)",
+    "segment": "segmenting",
     "render": "drawing outputs",
     "write": "writing files",
 }
