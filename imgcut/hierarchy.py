@@ -1,0 +1,408 @@
+"""A nested region hierarchy from a boundary-strength map.
+
+An over-segmentation (watershed of the boundary map) is merged greedily: the two adjacent regions
+whose common border has the weakest mean boundary strength are merged first, borders are
+updated, and so on until one region per connected piece of the image is left (Arbelaez, Maire,
+Fowlkes & Malik 2011, §4.2, "ultrametric contour map").  Every border between two base regions
+gets the level at which its two sides were merged; these levels form an ultrametric, so
+thresholding them at ``t`` gives nested segmentations: the segmentation at level ``t`` is the set
+of connected components of the region adjacency graph restricted to borders of level ≤ ``t``.
+"""
+
+from __future__ import annotations
+
+import heapq
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage, sparse
+from scipy.sparse.csgraph import connected_components
+
+__all__ = ["RegionHierarchy", "oversegment", "merge_regions", "boundary_hierarchy"]
+
+
+def _renumber(labels: np.ndarray) -> np.ndarray:
+    """Renumber a label image to 1..K in raster order of first appearance (int32)."""
+    flat = labels.ravel()
+    _, first, inv = np.unique(flat, return_index=True, return_inverse=True)
+    order = np.argsort(np.argsort(first))
+    return (order[inv] + 1).astype(np.int32).reshape(labels.shape)
+
+
+@dataclass(frozen=True)
+class RegionHierarchy:
+    """Nested segmentations from greedy merging of an over-segmentation.
+
+    Attributes
+    ----------
+    base_labels : ndarray, shape (H, W), int32
+        Over-segmentation, regions 1..n_base in raster order.
+    edges : ndarray, shape (m, 2), int64
+        Pairs ``(i, j)``, ``i < j``, of adjacent base regions, as 0-based indices
+        (``label - 1``).
+    edge_levels : ndarray, shape (m,), float64
+        Level at which the two sides of each border end up in one region (an ultrametric:
+        the merge level of their lowest common ancestor).
+    edge_strength : ndarray, shape (m,), float64
+        Mean boundary strength along each border of the over-segmentation.
+    merge_levels : ndarray, shape (n_merges,), float64
+        Non-decreasing level of each successive merge.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> e = np.zeros((20, 30)); e[:, 9:11] = 1.0; e[:, 19:21] = 0.5
+    >>> h = boundary_hierarchy(e)
+    >>> [h.n_regions_at(t) for t in (0.1, 0.7, 1.0)]
+    [3, 2, 1]
+    """
+
+    base_labels: np.ndarray
+    edges: np.ndarray
+    edge_levels: np.ndarray
+    edge_strength: np.ndarray
+    merge_levels: np.ndarray
+
+    @property
+    def n_base(self) -> int:
+        """Number of regions of the over-segmentation."""
+        return int(self.base_labels.max())
+
+    def _components(self, level: float) -> np.ndarray:
+        keep = self.edge_levels <= level
+        n = self.n_base
+        e = self.edges[keep]
+        g = sparse.coo_matrix((np.ones(len(e)), (e[:, 0], e[:, 1])), shape=(n, n))
+        _, comp = connected_components(g, directed=False)
+        return comp
+
+    def n_regions_at(self, level: float) -> int:
+        """Number of regions of the segmentation at ``level``."""
+        return int(self._components(level).max()) + 1
+
+    def labels_at(self, level: float) -> np.ndarray:
+        """Segmentation at ``level``: base regions joined by borders of level ≤ ``level``.
+
+        Parameters
+        ----------
+        level : float
+            Threshold on the ultrametric (boundary-strength units).  Below the first merge
+            level this is the over-segmentation; at or above the last it is one region per
+            connected piece of the image.
+
+        Returns
+        -------
+        ndarray, shape (H, W), int32
+            Labels 1..K renumbered in raster order.
+        """
+        if not np.isfinite(level):
+            raise ValueError(f"level must be a finite number; got {level}")
+        comp = self._components(float(level))
+        return _renumber(comp[self.base_labels - 1])
+
+    def labels_with(self, n_regions: int) -> np.ndarray:
+        """Segmentation of the hierarchy with ``n_regions`` regions (or the nearest level).
+
+        Parameters
+        ----------
+        n_regions : int
+            Wanted number of regions, ≥ 1; clipped to the range the hierarchy covers.
+
+        Returns
+        -------
+        ndarray, shape (H, W), int32
+        """
+        if n_regions < 1:
+            raise ValueError(f"n_regions must be >= 1; got {n_regions}")
+        n_merges = len(self.merge_levels)
+        k = self.n_base - int(n_regions)  # merges to apply
+        if k <= 0 or n_merges == 0:
+            return self.base_labels.copy()
+        k = min(k, n_merges)
+        return self.labels_at(float(self.merge_levels[k - 1]))
+
+    def ultrametric_map(self) -> np.ndarray:
+        """Ultrametric contour map on pixels: the level of the strongest border at each pixel.
+
+        Returns
+        -------
+        ndarray, shape (H, W), float64
+            For every pixel, the maximum level over the borders it shares with its right and
+            lower neighbours (0 inside regions).  Thresholding it at ``t`` gives the region
+            boundaries of :meth:`labels_at` ``(t)`` (up to the one-pixel boundary convention).
+        """
+        lab = self.base_labels - 1
+        n = self.n_base
+        key = self.edges[:, 0] * n + self.edges[:, 1]
+        order = np.argsort(key)
+        key, lev = key[order], self.edge_levels[order]
+        out = np.zeros(lab.shape, dtype=np.float64)
+        for a, b, sl in (
+            (lab[:, :-1], lab[:, 1:], np.s_[:, :-1]),
+            (lab[:-1, :], lab[1:, :], np.s_[:-1, :]),
+        ):
+            diff = a != b
+            lo, hi = np.minimum(a[diff], b[diff]), np.maximum(a[diff], b[diff])
+            val = lev[np.searchsorted(key, lo * n + hi)]
+            view = out[sl]
+            cur = view[diff]
+            view[diff] = np.maximum(cur, val)
+        return out
+
+
+def oversegment(boundary: np.ndarray, *, smooth: float = 1.0) -> np.ndarray:
+    """Watershed over-segmentation of a boundary-strength map.
+
+    Parameters
+    ----------
+    boundary : ndarray, shape (H, W)
+        Boundary strength (high on boundaries).
+    smooth : float, default 1.0
+        σ (pixels) of a Gaussian applied before finding minima, to limit spurious minima;
+        0 disables it.
+
+    Returns
+    -------
+    ndarray, shape (H, W), int32
+        Catchment basins of the regional minima, 1..K in raster order; every pixel labelled.
+
+    Raises
+    ------
+    ValueError
+        If ``boundary`` is not a finite 2-D array.
+
+    Notes
+    -----
+    Watershed by flooding from every regional minimum (Beucher & Meyer 1993), computed with
+    ``skimage.segmentation.watershed``; the basins' borders lie on the crests of the map, which
+    is what the oriented watershed transform of Arbelaez et al. (2011, §4.1) starts from.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> e = np.zeros((10, 12)); e[:, 6] = 1.0
+    >>> int(oversegment(e).max())
+    2
+    """
+    from skimage.segmentation import watershed
+
+    b = np.asarray(boundary, dtype=np.float64)
+    if b.ndim != 2 or b.size == 0:
+        raise ValueError(f"boundary must have shape (H, W); got {b.shape}")
+    if not np.all(np.isfinite(b)):
+        raise ValueError("boundary contains NaN or inf")
+    if smooth > 0:
+        b = ndimage.gaussian_filter(b, smooth)
+    lab = watershed(b)  # markers: regional minima (scikit-image default)
+    return _renumber(lab)
+
+
+def _border_pairs(labels: np.ndarray):
+    """Pixel pairs (4-neighbours) across region borders: label pairs, pixel indices, axis."""
+    lab = labels
+    h, w = lab.shape
+    idx = np.arange(h * w).reshape(h, w)
+    out = []
+    for axis, (a, b, ia, ib) in enumerate(
+        (
+            (lab[:, :-1], lab[:, 1:], idx[:, :-1], idx[:, 1:]),  # horizontal neighbours
+            (lab[:-1, :], lab[1:, :], idx[:-1, :], idx[1:, :]),  # vertical neighbours
+        )
+    ):
+        d = a != b
+        out.append((a[d], b[d], ia[d], ib[d], np.full(int(d.sum()), axis, np.int8)))
+    cat = [np.concatenate([o[k] for o in out]) for k in range(5)]
+    return cat
+
+
+def _border_strength(labels, boundary, tensor, min_arc_pixels=4):
+    """Per RAG edge: mean strength along the border; optionally with oriented strength."""
+    la, lb, pa, pb, axis = _border_pairs(labels)
+    lo = np.minimum(la, lb).astype(np.int64) - 1
+    hi = np.maximum(la, lb).astype(np.int64) - 1
+    n = int(labels.max())
+    key = lo * n + hi
+    ukey, inv = np.unique(key, return_inverse=True)
+    m = len(ukey)
+    edges = np.stack([ukey // n, ukey % n], axis=1)
+    count = np.bincount(inv, minlength=m).astype(np.float64)
+    bflat = np.asarray(boundary, dtype=np.float64).ravel()
+    if tensor is None:
+        val = 0.5 * (bflat[pa] + bflat[pb])
+    else:
+        # Oriented strength across each border, with the border approximated by one straight
+        # segment per arc (Arbelaez et al. 2011, §4.1, oriented watershed transform).
+        h, w = labels.shape
+        ya, xa = np.divmod(pa, w)
+        yb, xb = np.divmod(pb, w)
+        my, mx = 0.5 * (ya + yb), 0.5 * (xa + xb)
+        s = lambda v: np.bincount(inv, weights=v, minlength=m)  # noqa: E731
+        cy, cx = s(my) / count, s(mx) / count
+        dy, dx = my - cy[inv], mx - cx[inv]
+        syy, sxx, sxy = s(dy * dy) / count, s(dx * dx) / count, s(dx * dy) / count
+        # principal direction of the midpoints = arc tangent; the normal is perpendicular
+        tang = 0.5 * np.arctan2(2 * sxy, sxx - syy)
+        normal = tang + np.pi / 2
+        # short arcs: orientation of each pixel pair itself (normal along the pair axis)
+        short = count[inv] < min_arc_pixels
+        pair_normal = np.where(axis == 0, 0.0, np.pi / 2)
+        ang = np.where(short, pair_normal, normal[inv])
+        tf = tensor.reshape(3, -1)
+        from .cues import oriented_strength
+
+        val = 0.5 * (oriented_strength(tf[:, pa], ang) + oriented_strength(tf[:, pb], ang))
+    total = np.bincount(inv, weights=val, minlength=m)
+    return edges, total, count
+
+
+def merge_regions(
+    labels: np.ndarray,
+    boundary: np.ndarray,
+    *,
+    tensor: np.ndarray | None = None,
+) -> RegionHierarchy:
+    """Greedy merging of adjacent regions by mean boundary strength along their common border.
+
+    Parameters
+    ----------
+    labels : ndarray, shape (H, W), int
+        Over-segmentation with every pixel labelled (values ≥ 1).
+    boundary : ndarray, shape (H, W)
+        Boundary strength; the strength of a border pixel pair is the mean of its two pixels.
+    tensor : ndarray, shape (3, H, W), optional
+        Oriented cue tensor (:func:`imgcut.cues.combine_cues`).  When given, a border's strength
+        is measured across the border's own orientation (one straight segment per arc, as in the
+        oriented watershed transform) instead of taking ``boundary``.
+
+    Returns
+    -------
+    RegionHierarchy
+
+    Raises
+    ------
+    ValueError
+        If shapes disagree or labels contain values < 1.
+
+    Notes
+    -----
+    Merging runs on the region adjacency graph with a binary heap: pop the border of smallest
+    mean strength ``Σ s / Σ 1``, merge its two regions, add the border sums and counts of the
+    merged region's neighbours (Arbelaez et al. 2011, §4.2).  The level of a merge is the running
+    maximum of the popped means, so levels are non-decreasing and the border levels form an
+    ultrametric.  Cost: ``O(m log m)`` for ``m`` borders; the loop is over regions, never pixels.
+
+    References
+    ----------
+    P. Arbelaez, M. Maire, C. Fowlkes, J. Malik, "Contour detection and hierarchical image
+    segmentation", IEEE TPAMI 33(5):898–916, 2011.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lab = np.repeat(np.array([[1, 2, 3]]), 4, axis=0).repeat(3, axis=1)
+    >>> b = np.zeros(lab.shape); b[:, 2:4] = 0.9; b[:, 5:7] = 0.2
+    >>> h = merge_regions(lab, b)
+    >>> h.merge_levels.round(2).tolist()
+    [0.2, 0.9]
+    """
+    lab = np.asarray(labels)
+    bnd = np.asarray(boundary, dtype=np.float64)
+    if lab.ndim != 2 or lab.shape != bnd.shape:
+        raise ValueError(
+            f"labels and boundary must both have shape (H, W); got {lab.shape} and {bnd.shape}"
+        )
+    if tensor is not None and np.asarray(tensor).shape != (3,) + lab.shape:
+        raise ValueError(f"tensor must have shape (3, H, W) = {(3,) + lab.shape}")
+    if lab.size and lab.min() < 1:
+        raise ValueError("labels must be >= 1 everywhere (every pixel in a region)")
+    base = _renumber(lab)
+    n = int(base.max())
+    edges, total, count = _border_strength(base, bnd, tensor)
+    m = len(edges)
+    strength = total / np.maximum(count, 1)
+    levels = np.zeros(m, dtype=np.float64)
+    # adjacency: region -> {neighbour: [sum, count, list of base-edge ids]}
+    adj: list[dict[int, list]] = [dict() for _ in range(n)]
+    heap = []
+    for e in range(m):
+        i, j = int(edges[e, 0]), int(edges[e, 1])
+        rec = [float(total[e]), float(count[e]), [e]]
+        adj[i][j] = rec
+        adj[j][i] = rec
+        heap.append((strength[e], i, j))
+    heapq.heapify(heap)
+    alive = np.ones(n, dtype=bool)
+    merges: list[float] = []
+    current = -np.inf
+    while heap:
+        s, i, j = heapq.heappop(heap)
+        if not (alive[i] and alive[j]):
+            continue
+        rec = adj[i].get(j)
+        if rec is None or rec[0] / rec[1] != s:
+            continue  # stale heap entry
+        current = max(current, s)
+        merges.append(current)
+        levels[rec[2]] = current
+        # merge the smaller neighbourhood into the larger (i survives)
+        if len(adj[i]) < len(adj[j]):
+            i, j = j, i
+        del adj[i][j]
+        del adj[j][i]
+        for k, rk in adj[j].items():
+            del adj[k][j]
+            ri = adj[i].get(k)
+            if ri is None:
+                adj[i][k] = rk
+                adj[k][i] = rk
+                merged = rk
+            else:
+                ri[0] += rk[0]
+                ri[1] += rk[1]
+                ri[2].extend(rk[2])
+                merged = ri
+            a, b = (i, k) if i < k else (k, i)
+            heapq.heappush(heap, (merged[0] / merged[1], a, b))
+        adj[j] = {}
+        alive[j] = False
+    return RegionHierarchy(
+        base_labels=base,
+        edges=edges.astype(np.int64),
+        edge_levels=levels,
+        edge_strength=strength,
+        merge_levels=np.asarray(merges, dtype=np.float64),
+    )
+
+
+def boundary_hierarchy(
+    boundary: np.ndarray, *, tensor: np.ndarray | None = None, smooth: float = 1.0
+) -> RegionHierarchy:
+    """Watershed over-segmentation of ``boundary`` followed by greedy merging.
+
+    Parameters
+    ----------
+    boundary : ndarray, shape (H, W)
+        Boundary strength, e.g. :func:`imgcut.cues.boundary_strength`.
+    tensor : ndarray, shape (3, H, W), optional
+        Oriented cue tensor; see :func:`merge_regions`.
+    smooth : float, default 1.0
+        Passed to :func:`oversegment`.
+
+    Returns
+    -------
+    RegionHierarchy
+
+    Raises
+    ------
+    ValueError
+        For a non-2-D or non-finite ``boundary``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> e = np.zeros((20, 30)); e[:, 14:16] = 1.0
+    >>> h = boundary_hierarchy(e)
+    >>> h.n_base, h.n_regions_at(0.5), h.n_regions_at(1.0)
+    (2, 2, 1)
+    """
+    return merge_regions(oversegment(boundary, smooth=smooth), boundary, tensor=tensor)

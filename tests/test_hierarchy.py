@@ -1,0 +1,124 @@
+"""Tests for imgcut.hierarchy (watershed over-segmentation and greedy merging)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from imgcut import hierarchy
+
+
+def _three_strips():
+    lab = np.repeat(np.array([[1, 2, 3]]), 6, axis=0).repeat(4, axis=1)
+    b = np.zeros(lab.shape)
+    b[:, 3:5] = 0.9  # border 1|2
+    b[:, 7:9] = 0.2  # border 2|3
+    return lab, b
+
+
+def test_merge_order_and_levels_follow_mean_border_strength():
+    # Greedy merging by mean boundary strength (Arbelaez et al. 2011, §4.2): the weak border
+    # (0.2) goes first, then the strong one (0.9).
+    lab, b = _three_strips()
+    h = hierarchy.merge_regions(lab, b)
+    assert h.merge_levels.tolist() == pytest.approx([0.2, 0.9])
+    assert h.n_regions_at(0.1) == 3
+    assert h.n_regions_at(0.5) == 2
+    assert h.n_regions_at(0.95) == 1
+    two = h.labels_at(0.5)
+    assert len(np.unique(two[:, 4:])) == 1 and two[0, 0] != two[0, 11]
+
+
+def test_levels_are_an_ultrametric_and_nested():
+    # Ultrametric property (Arbelaez et al. 2011, §4.2): for any three base regions the two
+    # largest pairwise merge levels are equal; and segmentations at t1 < t2 are nested.
+    rng = np.random.default_rng(0)
+    e = rng.random((40, 50))
+    h = hierarchy.boundary_hierarchy(e, smooth=2.0)
+    assert np.all(np.diff(h.merge_levels) >= 0)
+    assert h.n_base - len(h.merge_levels) == 1  # a connected image ends as one region
+    fine, coarse = h.labels_at(0.4), h.labels_at(0.6)
+    # every fine region lies inside exactly one coarse region
+    pairs = np.unique(np.stack([fine.ravel(), coarse.ravel()]), axis=1)
+    assert len(np.unique(pairs[0])) == pairs.shape[1]
+    # Ultrametric inequality U(a, c) <= max(U(a, b), U(b, c)) for every triple of base regions,
+    # with U(a, b) the first level at which a and b share a region.
+    n = h.n_base
+    u = np.full((n, n), np.inf)
+    for t in np.unique(h.merge_levels)[::-1]:
+        comp = h._components(t)
+        same = comp[:, None] == comp[None, :]
+        u[same] = t
+    np.fill_diagonal(u, 0.0)
+    bound = np.maximum(u[:, :, None], u[None, :, :])  # max(U(a,b), U(b,c)) indexed [a, b, c]
+    assert np.all(u[:, None, :] <= bound + 1e-12)
+
+
+def test_labels_with_counts_and_raster_numbering():
+    lab, b = _three_strips()
+    h = hierarchy.merge_regions(lab, b)
+    for k in (1, 2, 3):
+        out = h.labels_with(k)
+        assert out.dtype == np.int32
+        assert out.max() == k
+        # raster order of first appearance (architecture convention)
+        _, first = np.unique(out.ravel(), return_index=True)
+        assert np.all(np.diff(first) > 0)
+    assert h.labels_with(10).max() == 3
+
+
+def test_ultrametric_map_thresholds_give_the_same_boundaries():
+    lab, b = _three_strips()
+    h = hierarchy.merge_regions(lab, b)
+    ucm = h.ultrametric_map()
+    assert ucm.max() == pytest.approx(0.9)
+    seg = h.labels_at(0.5)
+    edge = np.zeros(seg.shape, bool)
+    edge[:, :-1] |= seg[:, :-1] != seg[:, 1:]
+    np.testing.assert_array_equal(edge, ucm > 0.5)
+
+
+def test_watershed_matches_scikit_image_on_two_basins():
+    # Two basins separated by a ridge: skimage.segmentation.watershed reference gives 2 regions
+    # split at the ridge.
+    e = np.zeros((10, 21))
+    e[:, 10] = 1.0
+    lab = hierarchy.oversegment(e, smooth=0)
+    assert lab.max() == 2
+    assert len(np.unique(lab[:, :10])) == 1 and len(np.unique(lab[:, 11:])) == 1
+
+
+def test_oriented_borders_use_the_tensor():
+    # A border whose tensor says "no change across the border" must get strength ~0 even
+    # where the isotropic map is high.
+    lab = np.repeat(np.array([[1, 2]]), 8, axis=0).repeat(5, axis=1)
+    b = np.ones(lab.shape)
+    tensor = np.zeros((3,) + lab.shape)
+    tensor[2] = 1.0  # change along y only; the border between columns has normal along x
+    h = hierarchy.merge_regions(lab, b, tensor=tensor)
+    assert h.edge_strength[0] == pytest.approx(0.0, abs=1e-6)
+    tensor[0], tensor[2] = 1.0, 0.0
+    h = hierarchy.merge_regions(lab, b, tensor=tensor)
+    assert h.edge_strength[0] == pytest.approx(1.0)
+
+
+def test_constant_map_and_single_region():
+    h = hierarchy.boundary_hierarchy(np.zeros((12, 9)))
+    assert h.n_base == 1
+    assert h.labels_at(0.5).max() == 1
+    assert h.labels_with(3).max() == 1
+
+
+def test_bad_input_raises():
+    with pytest.raises(ValueError, match="shape"):
+        hierarchy.merge_regions(np.ones((3, 3), int), np.zeros((3, 4)))
+    with pytest.raises(ValueError, match=">= 1"):
+        hierarchy.merge_regions(np.zeros((3, 3), int), np.zeros((3, 3)))
+    with pytest.raises(ValueError, match="NaN"):
+        hierarchy.boundary_hierarchy(np.full((3, 3), np.nan))
+    lab, b = _three_strips()
+    h = hierarchy.merge_regions(lab, b)
+    with pytest.raises(ValueError, match="n_regions"):
+        h.labels_with(0)
+    with pytest.raises(ValueError, match="finite"):
+        h.labels_at(np.nan)
