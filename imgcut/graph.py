@@ -90,7 +90,7 @@ def estimate_graph_memory(shape, radius: float, mask=None) -> tuple[int, int]:
     shape : tuple of int
         Image shape ``(H, W)`` or ``(H, W, C)`` (channels do not change the graph).
     radius : float
-        Neighbourhood radius in pixels, ``> 0``.
+        Neighbourhood radius in pixels, ``>= 1``.
     mask : array_like of bool, optional
         ``(H, W)`` foreground mask; the count is then restricted to pairs of True pixels.
 
@@ -163,8 +163,8 @@ def affinity_graph(
         computed with its defaults), or precomputed :class:`~imgcut.features.Features`.
     radius : float, default 5
         Pixels ``i, j`` are linked when ``‖X_i − X_j‖ <= radius`` (Euclidean, pixels; may be
-        fractional, must be ``>= 1`` to link anything — values in ``(0, 1)`` give an empty
-        graph). Cost and memory grow like ``π r²`` per pixel: about 80 neighbours at r = 5.
+        fractional, must be ``>= 1``: 1 gives the 4-neighbour grid, 1.5 adds the diagonals).
+        Cost and memory grow like ``π r²`` per pixel: 80 neighbours at r = 5.
     cue : {"combined", "intensity", "contour"}, default "combined"
         ``"intensity"``: Shi–Malik feature × distance weight; ``"contour"``: intervening
         contour; ``"combined"``: their product.
@@ -189,7 +189,7 @@ def affinity_graph(
     ------
     ValueError
         Bad image, unknown cue (valid: "combined", "intensity", "contour"), radius not finite
-        and > 0, σ not finite and > 0 (or so large or small that σ² or 1/σ² overflows),
+        and >= 1, σ not finite and > 0 (or so large or small that σ² or 1/σ² overflows),
         bad mask, a mask that selects no pixel.
     GraphTooLargeError
         The estimate from :func:`estimate_graph_memory` exceeds ``memory_budget``.
@@ -300,9 +300,12 @@ def _check_radius(radius) -> float:
     try:
         r = float(radius)
     except (TypeError, ValueError):
-        raise ValueError(f"radius must be a finite number > 0 (pixels), got {radius!r}") from None
-    if not math.isfinite(r) or r <= 0:
-        raise ValueError(f"radius must be a finite number > 0 (pixels), got {radius!r}")
+        raise ValueError(f"radius must be a finite number >= 1 (pixels), got {radius!r}") from None
+    if not math.isfinite(r) or r < 1.0:
+        raise ValueError(
+            f"radius must be a finite number >= 1 (pixels) so that neighbours are linked, "
+            f"got {radius!r}"
+        )
     return r
 
 
