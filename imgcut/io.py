@@ -46,7 +46,7 @@ PARTIAL_SUFFIX = ".imgcut-partial"
 
 # A stack is decoded whole before a plane is picked; bound the total number of samples
 # decoded relative to the per-plane limit so that a stack of many planes cannot exhaust memory.
-_MAX_SAMPLES_PER_PIXEL = 64
+_MAX_SAMPLES_PER_PIXEL = 16
 
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")  # classic and BigTIFF headers
 _PIL_LOCK = threading.Lock()  # PIL.Image.MAX_IMAGE_PIXELS is process-global
@@ -310,12 +310,25 @@ def _read_pil(path: Path, max_pixels: int) -> tuple[np.ndarray, str, str, _Sourc
                         f"{path}: image is {h}×{w} = {h * w:,} pixels, over the limit of "
                         f"{max_pixels:,} (raise it with --max-pixels if the file is trusted)"
                     )
-                im.load()
-                im, note = _pil_to_plain_mode(im)
-                if note:
-                    notes.append(note)
-                mode = im.mode
-                data = np.asarray(im)
+                n_frames = int(getattr(im, "n_frames", 1) or 1)
+                if n_frames * h * w > _MAX_SAMPLES_PER_PIXEL * max_pixels:
+                    raise ImageTooLargeError(
+                        f"{path}: {n_frames} frames of {h}×{w} pixels are over the limit of "
+                        f"{_MAX_SAMPLES_PER_PIXEL} × {max_pixels:,} (raise --max-pixels if "
+                        "trusted)"
+                    )
+                frames = []
+                for k in range(n_frames):  # animated PNG/GIF, multi-frame formats
+                    im.seek(k)
+                    im.load()
+                    frame, note = _pil_to_plain_mode(im)
+                    if note and note not in notes:
+                        notes.append(note)
+                    frames.append(np.asarray(frame))
+                mode = frame.mode
+                if len({(f.shape, f.dtype) for f in frames}) > 1:
+                    raise ImageReadError(f"{path}: frames differ in size or sample type")
+                data = np.stack(frames)
         except (ImageReadError, MemoryError):
             raise
         except UnidentifiedImageError as exc:
@@ -333,18 +346,17 @@ def _read_pil(path: Path, max_pixels: int) -> tuple[np.ndarray, str, str, _Sourc
     if data.dtype == bool:
         data = data.astype(np.uint8) * np.uint8(255)
         notes.append("bilevel samples mapped to 0/255")
-    if data.ndim == 2:
-        stack = data[None, :, :, None]
-        axes = "YX"
-    else:
-        stack = data[None]
-        axes = "YXS"
+    stack = data[..., None] if data.ndim == 3 else data  # (frames, H, W, C)
+    axes = ("YX" if data.ndim == 3 else "YXS")
+    shape = tuple(data.shape[1:])
+    if stack.shape[0] > 1:
+        axes, shape = "T" + axes, tuple(data.shape)
     source = _Source(
-        shape=tuple(data.shape),
+        shape=shape,
         axes=axes,
         dtype=f"{data.dtype} ({mode})",
-        plane_axes="",
-        channel_axis="S" if data.ndim == 3 else "",
+        plane_axes="T" if stack.shape[0] > 1 else "",
+        channel_axis="S" if data.ndim == 4 else "",
         pages_ambiguous=False,
         notes=notes,
     )

@@ -141,6 +141,17 @@ def test_plain_pages_need_a_choice_and_can_be_channels(tmp_path):
     np.testing.assert_array_equal(img.pixels, np.moveaxis(pages[[0, 2]], 0, -1))
 
 
+def test_animated_png_frames_are_planes(tmp_path):
+    frames = [RNG.integers(0, 256, (5, 6, 3), dtype=np.uint8) for _ in range(3)]
+    images = [Image.fromarray(f) for f in frames]
+    path = tmp_path / "anim.png"
+    images[0].save(path, save_all=True, append_images=images[1:])  # APNG, written by Pillow
+    with pytest.raises(ImageReadError, match="3 planes"):
+        read_image(path)
+    np.testing.assert_array_equal(read_image(path, plane=2).pixels, frames[2])
+    np.testing.assert_array_equal(read_image(path, plane="max").pixels, np.max(frames, axis=0))
+
+
 def test_single_image_accepts_plane_zero_only(tmp_path):
     path = _save_pil(tmp_path / "a.png", np.zeros((4, 4), np.uint8))
     assert read_image(path, plane=0).pixels.shape == (4, 4)
