@@ -15,7 +15,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from imgcut._errors import GraphTooLargeError
-from imgcut.features import Features, compute_features
+from imgcut.features import Features, compute_features, validate_image
 
 __all__ = ["AffinityGraph", "GraphTooLargeError", "affinity_graph", "estimate_graph_memory"]
 
@@ -245,8 +245,25 @@ def affinity_graph(
     """
     if cue not in _CUES:
         raise ValueError(f"cue must be one of {_CUES}, got {cue!r}")
-    feats = image if isinstance(image, Features) else compute_features(image)
-    height, width = feats.shape
+    for name, value in (
+        ("sigma_feature", sigma_feature),
+        ("sigma_distance", sigma_distance),
+        ("sigma_edge", sigma_edge),
+    ):
+        if value is not None:
+            _check_sigma(value, name)
+    if memory_budget is not None and not (
+        isinstance(memory_budget, int | float | np.integer | np.floating) and memory_budget > 0
+    ):
+        raise ValueError(
+            f"memory_budget must be a number of bytes > 0 or None, got {memory_budget!r}"
+        )
+    if isinstance(image, Features):
+        feats = image
+        height, width = feats.shape
+    else:  # features are computed after the memory check
+        feats = None
+        height, width = validate_image(image).shape[:2]
     r = _check_radius(radius)
     m = None if mask is None else _check_mask(mask, (height, width))
     if m is not None and not m.any():
@@ -259,6 +276,8 @@ def affinity_graph(
             f"{est_bytes / 1e9:.2f} GB ({nnz} non-zeros) > memory_budget "
             f"{memory_budget / 1e9:.2f} GB; use the multiscale path or a smaller radius"
         )
+    if feats is None:
+        feats = compute_features(image)
 
     use_feature = cue in ("intensity", "combined")
     use_edge = cue in ("contour", "combined")

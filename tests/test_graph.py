@@ -286,6 +286,12 @@ def test_memory_guard_refuses_before_building():
     assert affinity_graph(img, radius=5, memory_budget=None).weights.nnz == nnz
 
 
+@pytest.mark.parametrize("budget", [0, -5, "4GB"])
+def test_bad_memory_budget(budget):
+    with pytest.raises(ValueError, match="memory_budget"):
+        affinity_graph(np.zeros((4, 4)), memory_budget=budget)
+
+
 def test_estimate_for_megapixel_images_is_cheap_and_refused_by_default():
     # 20000 x 20000 at r = 5: about 3.2e10 non-zeros, far beyond the 4 GiB default.
     nnz, est = estimate_graph_memory((20000, 20000), 5)
