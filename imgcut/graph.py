@@ -259,7 +259,7 @@ def affinity_graph(
             f"memory_budget must be a number of bytes > 0 or None, got {memory_budget!r}"
         )
     if isinstance(image, Features):
-        feats = image
+        feats = _check_features(image)
         height, width = feats.shape
     else:  # features are computed after the memory check
         feats = None
@@ -341,6 +341,18 @@ def _check_sigma(sigma, name: str) -> float:
     if s2 == 0.0 or not math.isfinite(1.0 / s2):
         raise ValueError(f"{name}={sigma!r} is too small: 1/{name}² overflows float64")
     return s
+
+
+def _check_features(feats: Features) -> Features:
+    values, edges = np.asarray(feats.values), np.asarray(feats.edges)
+    if values.ndim != 3 or 0 in values.shape or edges.shape != values.shape[:2]:
+        raise ValueError(
+            f"Features.values must have shape (H, W, C) and Features.edges (H, W), got "
+            f"{values.shape} and {edges.shape}"
+        )
+    if not (np.isfinite(values).all() and np.isfinite(edges).all()) or (edges < 0).any():
+        raise ValueError("Features must be finite and Features.edges non-negative")
+    return feats
 
 
 def _check_mask(mask, shape: tuple[int, int]) -> np.ndarray:

@@ -168,6 +168,46 @@ def test_contour_weights_match_hand_computed_line_maximum():
     assert w[idx(0, 3), idx(1, 2)] == pytest.approx(math.exp(-(0.3**2) / se**2), rel=1e-12)
 
 
+def _dense_reference(values, edges, radius, sf, sx, se, mask):
+    """W by a double loop over pixel pairs, straight from the formulas in the docstring."""
+    h, w = edges.shape
+    ids = [(y, x) for y in range(h) for x in range(w) if mask[y, x]]
+    ref = np.zeros((len(ids), len(ids)))
+    for a, (y0, x0) in enumerate(ids):
+        for b, (y1, x1) in enumerate(ids):
+            d2 = (y1 - y0) ** 2 + (x1 - x0) ** 2
+            if a == b or d2 > radius**2:
+                continue
+            # segment samples from the lower-raster pixel: i + floor(s * (j - i) / L + 1/2)
+            (ya, xa), (yb, xb) = sorted([(y0, x0), (y1, x1)])
+            length = max(abs(yb - ya), abs(xb - xa))
+            emax = max(
+                edges[
+                    ya + math.floor(s * (yb - ya) / length + 0.5),
+                    xa + math.floor(s * (xb - xa) / length + 0.5),
+                ]
+                for s in range(length + 1)
+            )
+            df2 = float(((values[y0, x0] - values[y1, x1]) ** 2).sum())
+            # Shi & Malik 2000 eq. (11) times Malik et al. 2001 intervening contour
+            ref[a, b] = math.exp(-df2 / sf**2 - d2 / sx**2 - emax**2 / se**2)
+    return ref
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_every_weight_equals_brute_force_formula(seed):
+    rng = np.random.default_rng(seed)
+    img = rng.random((6, 7, 3))
+    mask = rng.random((6, 7)) > 0.2 if seed else np.ones((6, 7), dtype=bool)
+    feats = compute_features(img)
+    sf, sx, se = 0.7, 1.9, 0.3
+    g = affinity_graph(
+        feats, radius=2.3, sigma_feature=sf, sigma_distance=sx, sigma_edge=se, mask=mask
+    )
+    ref = _dense_reference(feats.values, feats.edges, 2.3, sf, sx, se, mask)
+    np.testing.assert_allclose(g.weights.toarray(), ref, rtol=1e-12, atol=0)
+
+
 def test_combined_is_product_of_the_two_cues():
     img = _noisy_two_regions((10, 12))
     kw = dict(radius=3, sigma_feature=0.2, sigma_distance=2.0, sigma_edge=0.1)
@@ -338,6 +378,16 @@ def test_bad_radius(radius):
         affinity_graph(np.zeros((4, 4)), radius=radius)
     with pytest.raises(ValueError, match="radius"):
         estimate_graph_memory((4, 4), radius)
+
+
+def test_inconsistent_features_rejected():
+    good = compute_features(np.zeros((4, 5)))
+    bad = Features(values=good.values, edges=np.zeros((5, 4)), kind="gray", low=0, high=1)
+    with pytest.raises(ValueError, match=r"\(H, W, C\)"):
+        affinity_graph(bad)
+    neg = Features(values=good.values, edges=-np.ones((4, 5)), kind="gray", low=0, high=1)
+    with pytest.raises(ValueError, match="non-negative"):
+        affinity_graph(neg)
 
 
 def test_bad_cue():
