@@ -285,6 +285,12 @@ def segment_command(
             raise
         where = exc.filename or image
         raise _fail(f"{where}: {exc.strerror or exc}", EXIT_DATA) from None
+    except Exception as exc:  # a failure inside the library: still one line, no traceback
+        if debug:
+            raise
+        text = (str(exc).strip().splitlines() or [""])[0]
+        raise _fail(f"{image}: {type(exc).__name__}: {text} (rerun with --debug for the "
+                    "traceback)", EXIT_DATA) from None
 
     if not quiet:
         for line in report.warnings:
