@@ -353,7 +353,7 @@ def plan_batch(
     Raises
     ------
     ValueError
-        As `discover_images`.
+        As `discover_images`, or when the output folder is the input folder.
 
     Examples
     --------
@@ -368,7 +368,14 @@ def plan_batch(
     """
     root = Path(input_dir).resolve()
     out_root = Path(out_dir).resolve()
-    sources = discover_images(root, patterns=patterns, exclude=[out_root])
+    if out_root == root:
+        # Outputs beside the inputs would be found as inputs by the next run.
+        raise ValueError(
+            f"the output folder must differ from the input folder ({str(root)!r}); "
+            "give --out a new folder (it may lie inside the input folder)"
+        )
+    inside = root in out_root.parents  # excluded from the search; an ancestor is not
+    sources = discover_images(root, patterns=patterns, exclude=[out_root] if inside else [])
     items: list[BatchItem] = []
     owners: dict[tuple[str, str], str] = {}
     for source in sources:

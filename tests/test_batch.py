@@ -118,6 +118,14 @@ def test_output_folder_inside_input_is_not_searched(tmp_path):
     assert [i.relative for i in items] == ["a.tif"]
 
 
+def test_output_folder_may_hold_the_input_folder_but_not_be_it(tmp_path):
+    _touch(tmp_path, "data/plate/a.tif")
+    items = plan_batch(tmp_path / "data" / "plate", tmp_path / "data")
+    assert [(i.relative, i.out_dir) for i in items] == [("a.tif", (tmp_path / "data").resolve())]
+    with pytest.raises(ValueError, match="must differ from the input folder"):
+        plan_batch(tmp_path / "data", tmp_path / "data" / "plate" / "..")
+
+
 def test_plan_mirrors_tree_and_flags_colliding_outputs(tmp_path):
     _touch(tmp_path, "plate/A01.tif", "plate/A01.png", "plate/sub/A01.tif")
     items = plan_batch(tmp_path / "plate", tmp_path / "res")
@@ -436,3 +444,31 @@ def test_interrupted_batch_leaves_whole_files_and_rerun_finishes(tmp_path, how):
     for path in out.rglob("*"):
         if path.is_file():
             _decodes(path)
+
+
+class _ThreadProbe(_FakePipeline):
+    """Records, inside the worker, how many threads each loaded BLAS/OpenMP pool may use."""
+
+    def compute(self, source, options):
+        import numpy  # noqa: F401  (BLAS loaded as the real pipeline would)
+        from threadpoolctl import threadpool_info
+
+        pools = threadpool_info()
+        return {
+            "n": len(pools),
+            "threads": [p["num_threads"] for p in pools],
+            "omp_env": os.environ.get("OMP_NUM_THREADS"),
+        }
+
+
+def test_workers_run_single_threaded_blas(tmp_path):
+    src = tmp_path / "in"
+    src.mkdir()
+    for i in range(2):
+        (src / f"f{i}.tif").write_text("IMG")
+    run_batch(src, tmp_path / "out", workers=2, gallery=False, pipeline=_ThreadProbe())
+    for i in range(2):
+        record = json.loads((tmp_path / "out" / f"f{i}.json").read_text())
+        # OpenBLAS/OpenMP default to one thread per core (2 here); the initializer caps them.
+        assert record["n"] >= 1 and set(record["threads"]) == {1}
+        assert record["omp_env"] == "1"

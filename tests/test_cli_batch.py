@@ -147,3 +147,24 @@ def test_dask_cluster_gives_the_same_files_as_local_workers(tmp_path):
             assert a.read_bytes() == b.read_bytes(), name
     record = json.loads((tmp_path / "dask" / "batch.json").read_text())
     assert record["scheduler"].startswith("tcp://127.0.0.1:") and record["done"] == 3
+
+
+def test_progress_bar_on_a_terminal_counts_done_failed_remaining():
+    import io
+
+    from imgcut.batch import BatchProgress, ImageResult
+    from imgcut.cli.batch_cmd import _Progress
+
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    screen = Terminal()
+    with _Progress(quiet=False, stream=screen) as view:
+        assert view.live
+        view(BatchProgress(3, 0, 0, 0))
+        view(BatchProgress(3, 1, 0, 0, ImageResult("a.tif", "done", seconds=1.0)))
+        view(BatchProgress(3, 1, 0, 1, ImageResult("b.tif", "failed", "b.tif: not an image")))
+    text = screen.getvalue()
+    assert "1 done" in text and "1 failed" in text and "1 remaining" in text
+    assert "b.tif: not an image" in text and "2/3" in text
