@@ -410,7 +410,7 @@ def _limit_threads_env() -> None:
         os.environ[name] = "1"
 
 
-def _worker_init() -> None:
+def _worker_init(preload: bool = True) -> None:
     """Initializer of each local worker process.
 
     Sets single-thread environment variables before numpy is imported here (the pool uses the
@@ -424,6 +424,8 @@ def _worker_init() -> None:
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(limits=1)
+    if not preload:
+        return
     try:  # import the pipeline now, so an image's time and memory are its own
         import imgcut.runner
         import imgcut.segment  # noqa: F401
@@ -760,7 +762,10 @@ def _run_local(
     interrupted = False
     while (pending or suspects) and not interrupted:
         executor = cf.ProcessPoolExecutor(
-            max_workers=workers, mp_context=context, initializer=_worker_init
+            max_workers=workers,
+            mp_context=context,
+            initializer=_worker_init,
+            initargs=(isinstance(pipeline, RunnerPipeline),),
         )
         in_flight: dict[cf.Future, tuple[BatchItem, bool]] = {}  # future → (item, isolated)
         broken = False
