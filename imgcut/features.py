@@ -23,6 +23,8 @@ _DEFAULT_PERCENTILES = (0.5, 99.5)
 # Lab channels are divided by this so that L* spans [0, 1] like a normalised gray image
 # (CIE L* runs from 0 to 100; a*, b* of sRGB colours lie roughly within ±100).
 _LAB_SCALE = 100.0
+# Pixels converted to Lab per call, bounding scikit-image's temporaries.
+_LAB_BLOCK_PIXELS = 1 << 18
 
 
 @dataclass(frozen=True, eq=False)
@@ -212,10 +214,8 @@ def compute_features(
     pct = _check_percentiles(percentiles)
     scales = _check_edge_scales(edge_scales)
 
-    data = arr.astype(np.float64)  # a private copy: normalised in place below
-    if data.ndim == 2:
-        data = data[:, :, None]
-    n_channels = data.shape[2]
+    source = arr if arr.ndim == 3 else arr[:, :, None]
+    n_channels = source.shape[2]
 
     if color == "lab" and n_channels != 3:
         raise ValueError(
@@ -225,7 +225,7 @@ def compute_features(
     use_lab = n_channels == 3 and color in ("auto", "lab")
 
     if use_lab:
-        rgb, low, high = _normalise(data, arr.dtype, pct, joint=True)
+        rgb, low, high = _normalise(source, pct, joint=True)
         if pct is None and (rgb.min() < 0.0 or rgb.max() > 1.0):
             raise ValueError(
                 "a float RGB image must lie in [0, 1] when percentiles=None "
@@ -234,7 +234,7 @@ def compute_features(
         values = _rgb_to_scaled_lab(rgb)
         kind = "lab"
     else:
-        values, low, high = _normalise(data, arr.dtype, pct, joint=False)
+        values, low, high = _normalise(source, pct, joint=False)
         kind = "gray" if n_channels == 1 else "channels"
 
     edges = _edge_strength(values, scales)
@@ -284,23 +284,28 @@ def _dtype_range(dtype: np.dtype) -> tuple[float, float]:
 
 
 def _normalise(
-    data: np.ndarray, dtype: np.dtype, pct: tuple[float, float] | None, *, joint: bool
+    source: np.ndarray, pct: tuple[float, float] | None, *, joint: bool
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Map intensities to [0, 1] per channel (or jointly), in place; returns values, low, high."""
-    n_channels = data.shape[2]
+    """Map (H, W, C) intensities to [0, 1] per channel (or jointly) as a new float64 array.
+
+    Returns values, low, high. Percentiles are taken on ``source`` in its own dtype (exact for
+    integers, and a smaller temporary copy than float64).
+    """
+    n_channels = source.shape[2]
+    dtype = source.dtype
     if pct is None:
         if np.issubdtype(dtype, np.integer):
             lo, hi = _dtype_range(dtype)
             low = np.full(n_channels, lo)
             high = np.full(n_channels, hi)
         else:  # floats used as they are
-            return data, np.zeros(n_channels), np.ones(n_channels)
+            return source.astype(np.float64), np.zeros(n_channels), np.ones(n_channels)
     elif joint:
-        q = np.percentile(data, pct)
+        q = np.percentile(source, pct)
         low = np.full(n_channels, q[0])
         high = np.full(n_channels, q[1])
     else:
-        q = np.percentile(data.reshape(-1, n_channels), pct, axis=0)
+        q = np.percentile(source.reshape(-1, n_channels), pct, axis=0)
         low, high = q[0].astype(np.float64), q[1].astype(np.float64)
 
     span = high - low
@@ -308,7 +313,7 @@ def _normalise(
     tiny = 64.0 * np.finfo(np.float64).eps * np.maximum(np.abs(low), np.abs(high))
     constant = span <= tiny
     scale = np.where(constant, 0.0, 1.0 / np.where(constant, 1.0, span))
-    values = data  # in place: compute_features owns this copy
+    values = source.astype(np.float64)  # the one full-size copy, normalised in place
     values -= low
     values *= scale
     np.clip(values, 0.0, 1.0, out=values)
@@ -316,11 +321,15 @@ def _normalise(
 
 
 def _rgb_to_scaled_lab(rgb: np.ndarray) -> np.ndarray:
+    """RGB in [0, 1] → Lab / 100, in place, in blocks of rows (rgb2lab is per pixel)."""
     from skimage.color import rgb2lab
 
-    lab = rgb2lab(rgb)  # CIE 15:2004 L*a*b*, D65 2° observer (scikit-image)
-    lab /= _LAB_SCALE  # L* in [0, 1]: commensurate with normalised gray (see Notes)
-    return np.ascontiguousarray(lab, dtype=np.float64)
+    rows = max(1, _LAB_BLOCK_PIXELS // rgb.shape[1])
+    for r0 in range(0, rgb.shape[0], rows):
+        block = rgb[r0 : r0 + rows]
+        block[...] = rgb2lab(block)  # CIE 15:2004 L*a*b*, D65 2° observer (scikit-image)
+        block /= _LAB_SCALE  # L* in [0, 1]: commensurate with normalised gray (see Notes)
+    return rgb
 
 
 def _edge_strength(values: np.ndarray, scales: tuple[float, ...]) -> np.ndarray:
