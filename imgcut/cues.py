@@ -476,6 +476,15 @@ def local_cues(
     return CueTensors(tuple(names), np.stack(tensors), tex)
 
 
+def _lookup_weight(weights: dict[str, float], name: str) -> float:
+    """Weight of an entry: by full name, by cue name, then by cue family (``channel``)."""
+    cue = name.split("@")[0]
+    for key in (name, cue, cue.split("_")[0]):
+        if key in weights:
+            return float(weights[key])
+    return 0.0
+
+
 def combine_cues(cues: CueTensors, weights: dict[str, float] | None = None) -> np.ndarray:
     """Weighted sum of cue tensors, ``T = Σ_i w_i T_i / Σ_i w_i``.
 
@@ -483,8 +492,10 @@ def combine_cues(cues: CueTensors, weights: dict[str, float] | None = None) -> n
     ----------
     cues : CueTensors
     weights : dict, optional
-        Weight per entry name (``"texture@8"``) or per cue prefix (``"texture"``; applies to
-        every scale); missing entries get weight 0.  Default: equal weights.
+        Weight per entry name (``"texture@8"``), per cue (``"texture"``, ``"channel_2"``;
+        applies to every scale) or per cue family (``"channel"`` for every ``channel_<c>``,
+        ``"colour"`` for both colour channels); missing entries get weight 0.  Default: equal
+        weights.
 
     Returns
     -------
@@ -505,9 +516,7 @@ def combine_cues(cues: CueTensors, weights: dict[str, float] | None = None) -> n
     if weights is None:
         w = np.ones(len(cues.names))
     else:
-        w = np.array(
-            [weights.get(n, weights.get(n.split("@")[0], 0.0)) for n in cues.names], dtype=float
-        )
+        w = np.array([_lookup_weight(weights, n) for n in cues.names], dtype=float)
     if np.any(w < 0) or w.sum() <= 0:
         raise ValueError(f"cue weights must be non-negative and not all zero; got {weights}")
     w = w / w.sum()

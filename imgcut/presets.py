@@ -1,0 +1,147 @@
+"""Named parameter presets for boundary cues, the spectral boundary and the region hierarchy.
+
+Every tunable number of the boundary pipeline lives in one frozen dataclass per preset, so a
+preset can be printed, compared, stored in a run record and reproduced.  The ``"photo"`` preset
+was fitted on the BSDS500 *train* split only (see ``docs/benchmarks.md`` for the protocol and the
+figures on *val*); ``"fluorescence"`` adapts it to microscopy (percentile quantisation of every
+channel, no colour opponency, smaller texture weight).
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, replace
+
+__all__ = ["BoundaryPreset", "PRESETS", "get_preset"]
+
+
+@dataclass(frozen=True)
+class BoundaryPreset:
+    """All parameters of the boundary → hierarchy pipeline.
+
+    Attributes
+    ----------
+    name : str
+        Preset name.
+    colour_space : {"lab", "percentile"}
+        How channels are quantised (see :func:`imgcut.cues.local_cues`).
+    brightness_sigmas, colour_sigmas, texture_sigmas : tuple of float
+        Half-window scales in pixels of each cue.
+    n_bins : int
+        Histogram bins per scalar channel.
+    n_textons : int
+        Texton count.
+    cue_weights : tuple of (str, float)
+        Weight per cue name or ``"<cue>@<sigma>"`` entry (:func:`imgcut.cues.combine_cues`).
+    spectral_weight : float
+        Weight β of the spectral tensor: ``T = (1 − β) T_local + β T_spectral``; 0 skips the
+        eigenvector computation.
+    spectral_vectors : int
+        Eigenvectors used by the spectral boundary.
+    spectral_radius : float
+        Radius of the intervening-contour graph (coarse-grid pixels).
+    spectral_downsample : int
+        Grid coarsening of the spectral graph.
+    watershed_smooth : float
+        σ of the smoothing before the watershed over-segmentation.
+    oriented : bool
+        Measure each border across its own orientation (oriented watershed arcs).
+    default_level : float
+        Hierarchy level giving the best segmentation covering over the tuning images (the
+        optimal dataset scale, ODS); used when the caller asks for no particular level.
+    level_sweep : tuple of float
+        Levels swept for benchmarks (one shared sweep for every image).
+    """
+
+    name: str
+    colour_space: str = "lab"
+    brightness_sigmas: tuple[float, ...] = (2.0, 4.0, 8.0)
+    colour_sigmas: tuple[float, ...] = (4.0, 8.0, 16.0)
+    texture_sigmas: tuple[float, ...] = (4.0, 8.0, 16.0)
+    n_bins: int = 16
+    n_textons: int = 32
+    cue_weights: tuple[tuple[str, float], ...] = (
+        ("brightness", 1.0),
+        ("colour_a", 1.0),
+        ("colour_b", 1.0),
+        ("texture", 1.0),
+    )
+    spectral_weight: float = 0.0
+    spectral_vectors: int = 8
+    spectral_radius: float = 3.0
+    spectral_downsample: int = 2
+    watershed_smooth: float = 1.0
+    oriented: bool = False
+    default_level: float = 0.5
+    level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(2, 19))
+
+    def weights(self) -> dict[str, float]:
+        """Cue weights as a dict for :func:`imgcut.cues.combine_cues`."""
+        return dict(self.cue_weights)
+
+    def cue_options(self) -> dict:
+        """Keyword arguments of :func:`imgcut.cues.local_cues`."""
+        return dict(
+            colour_space=self.colour_space,
+            brightness_sigmas=self.brightness_sigmas,
+            colour_sigmas=self.colour_sigmas,
+            texture_sigmas=self.texture_sigmas,
+            n_bins=self.n_bins,
+            n_textons=self.n_textons,
+        )
+
+    def as_dict(self) -> dict:
+        """Plain dict of every field (for run records)."""
+        return asdict(self)
+
+
+_PHOTO = BoundaryPreset(name="photo")
+
+_FLUORESCENCE = replace(
+    _PHOTO,
+    name="fluorescence",
+    colour_space="percentile",
+    cue_weights=(("brightness", 1.0), ("channel", 1.0), ("texture", 0.25)),
+)
+
+PRESETS: dict[str, BoundaryPreset] = {p.name: p for p in (_PHOTO, _FLUORESCENCE)}
+
+
+def get_preset(preset: str | BoundaryPreset = "photo", **overrides) -> BoundaryPreset:
+    """Look up a preset by name (or pass one through), optionally overriding fields.
+
+    Parameters
+    ----------
+    preset : str or BoundaryPreset, default "photo"
+        One of ``PRESETS`` (``"photo"``, ``"fluorescence"``) or a preset object.
+    **overrides
+        Field values to replace, e.g. ``spectral_weight=0``.
+
+    Returns
+    -------
+    BoundaryPreset
+
+    Raises
+    ------
+    ValueError
+        For an unknown preset name or field.
+
+    Examples
+    --------
+    >>> get_preset("photo").name
+    'photo'
+    >>> get_preset("photo", oriented=False).oriented
+    False
+    """
+    if isinstance(preset, BoundaryPreset):
+        p = preset
+    elif isinstance(preset, str) and preset in PRESETS:
+        p = PRESETS[preset]
+    else:
+        raise ValueError(f"preset must be one of {sorted(PRESETS)}; got {preset!r}")
+    if overrides:
+        fields = set(BoundaryPreset.__dataclass_fields__)
+        bad = sorted(set(overrides) - fields)
+        if bad:
+            raise ValueError(f"unknown preset field(s) {bad}; valid fields: {sorted(fields)}")
+        p = replace(p, **overrides)
+    return p

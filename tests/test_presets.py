@@ -1,0 +1,49 @@
+"""Tests for imgcut.presets (named, frozen parameter sets)."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from imgcut import cues, presets
+
+
+def test_presets_are_frozen_named_dataclasses():
+    assert {"photo", "fluorescence"} <= set(presets.PRESETS)
+    for name, p in presets.PRESETS.items():
+        assert p.name == name
+        with pytest.raises(dataclasses.FrozenInstanceError):
+            p.n_bins = 3  # type: ignore[misc]
+        assert 0 <= p.spectral_weight <= 1
+        assert min(p.level_sweep) <= p.default_level <= max(p.level_sweep)
+        assert list(p.level_sweep) == sorted(p.level_sweep)
+
+
+def test_every_preset_runs_the_cues_with_its_options_and_weights():
+    # Each preset's options must be accepted by local_cues and its weights must select at least
+    # one cue present for a gray and an RGB image.
+    rng = np.random.default_rng(0)
+    for p in presets.PRESETS.values():
+        for img in (rng.random((24, 24)), rng.random((24, 24, 3))):
+            c = cues.local_cues(img, **p.cue_options())
+            t = cues.combine_cues(c, p.weights())
+            assert t.shape == (3, 24, 24)
+
+
+def test_get_preset_overrides_and_errors():
+    p = presets.get_preset("photo", spectral_weight=0.0)
+    assert p.spectral_weight == 0.0
+    assert presets.PRESETS["photo"].name == "photo"  # original untouched
+    assert presets.get_preset(p) is p
+    with pytest.raises(ValueError, match="photo"):
+        presets.get_preset("nope")
+    with pytest.raises(ValueError, match="unknown preset field"):
+        presets.get_preset("photo", colour="x")
+
+
+def test_as_dict_round_trip():
+    p = presets.PRESETS["fluorescence"]
+    d = p.as_dict()
+    assert presets.BoundaryPreset(**d) == p
