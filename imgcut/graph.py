@@ -212,8 +212,9 @@ def affinity_graph(
     *Default σ* (heuristics from the image's own statistics, common practice, not a theorem):
 
     * ``σ_F = sqrt(mean ‖F_i − F_j‖²)`` over horizontally and vertically adjacent pixel
-      pairs (inside the mask): the typical nearest-neighbour feature change. Falls back to
-      1 when that is 0 (constant image).
+      pairs (inside the mask): the typical nearest-neighbour feature change. A mean of
+      squares rather than a median, because the median is 0 on images with flat regions.
+      Falls back to 1 when it is 0 (constant image).
     * ``σ_X = 0.8 · radius`` (r = 5 gives σ_X = 4; the distance factor at the rim of the disk is
       ``exp(−1/0.64) ≈ 0.21``).
     * ``σ_E = sqrt(mean E²)`` over the (masked) pixels, the RMS edge strength; 1 when E ≡ 0.

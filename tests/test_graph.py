@@ -71,9 +71,9 @@ def test_w_is_symmetric_nonnegative_zero_diagonal_sorted_csr(cue):
     np.testing.assert_allclose(g.degrees, np.asarray(w.sum(axis=1)).ravel())
 
 
-@pytest.mark.parametrize("radius", [1, 1.5, 2, 2.9, 3, 4.2])
+@pytest.mark.parametrize("radius", [1, 1.5, 2, 2.9, 3, 4.2, 6.5, 9, 12.5])
 def test_nnz_and_pattern_equal_brute_force(radius):
-    shape = (5, 7)
+    shape = (5, 7) if radius < 6 else (14, 16)  # r > 6.4: several 64-bit validity words
     g = affinity_graph(np.random.default_rng(0).random(shape), radius=radius)
     pairs = _brute_force_pairs(shape, radius)
     assert g.weights.nnz == len(pairs)
@@ -194,17 +194,20 @@ def _dense_reference(values, edges, radius, sf, sx, se, mask):
     return ref
 
 
-@pytest.mark.parametrize("seed", [0, 1])
-def test_every_weight_equals_brute_force_formula(seed):
+@pytest.mark.parametrize(
+    "seed, shape, radius",
+    [(0, (6, 7), 2.3), (1, (6, 7), 2.3), (2, (9, 11), 7.0)],  # r = 7: 74 offsets, 2 bit words
+)
+def test_every_weight_equals_brute_force_formula(seed, shape, radius):
     rng = np.random.default_rng(seed)
-    img = rng.random((6, 7, 3))
-    mask = rng.random((6, 7)) > 0.2 if seed else np.ones((6, 7), dtype=bool)
+    img = rng.random((*shape, 3))
+    mask = rng.random(shape) > 0.2 if seed else np.ones(shape, dtype=bool)
     feats = compute_features(img)
     sf, sx, se = 0.7, 1.9, 0.3
     g = affinity_graph(
-        feats, radius=2.3, sigma_feature=sf, sigma_distance=sx, sigma_edge=se, mask=mask
+        feats, radius=radius, sigma_feature=sf, sigma_distance=sx, sigma_edge=se, mask=mask
     )
-    ref = _dense_reference(feats.values, feats.edges, 2.3, sf, sx, se, mask)
+    ref = _dense_reference(feats.values, feats.edges, radius, sf, sx, se, mask)
     np.testing.assert_allclose(g.weights.toarray(), ref, rtol=1e-12, atol=0)
 
 
