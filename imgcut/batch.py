@@ -484,13 +484,17 @@ class _Outcome:
 
 
 def _local_task(pipeline: Any, item: BatchItem, options: Any) -> _Outcome:
-    """Read, segment and write one image inside a local worker process."""
-    reset = _reset_peak_memory()
+    """Read, segment and write one image inside a local worker process.
+
+    The peak memory is this image's own where the kernel lets us reset the high-water mark
+    (Linux), else the worker's peak so far.
+    """
+    _reset_peak_memory()
     start = time.perf_counter()
     worker = f"pid:{os.getpid()}"
     try:
         computed = pipeline.compute(item.source, options)
-        peak = _peak_memory_mb() if reset else None
+        peak = _peak_memory_mb()
         numbers = pipeline.write(
             computed, item, options, extra={"peak_memory_mb": peak, "worker": worker}
         )
@@ -500,14 +504,14 @@ def _local_task(pipeline: Any, item: BatchItem, options: Any) -> _Outcome:
             _one_line(exc),
             seconds=time.perf_counter() - start,
             worker=worker,
-            peak_memory_mb=_peak_memory_mb() if reset else None,
+            peak_memory_mb=_peak_memory_mb(),
         )
     return _Outcome(
         True,
         regions=numbers.get("regions"),
         objects=numbers.get("objects"),
         seconds=time.perf_counter() - start,
-        peak_memory_mb=_peak_memory_mb() if reset else peak,
+        peak_memory_mb=_peak_memory_mb(),
         worker=worker,
     )
 

@@ -7,7 +7,10 @@ outcome to an exit code: 0 all done, 1 some image failed, 2 bad usage, 130 inter
 
 from __future__ import annotations
 
+import contextlib
+import signal
 import sys
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -207,7 +210,7 @@ def _batch_command(
 
     try:
         options = _options_from(segment_params)
-        with _Progress(quiet=quiet) as view:
+        with _Progress(quiet=quiet) as view, _terminate_as_interrupt():
             report = run_batch(
                 input_dir,
                 out,
@@ -244,6 +247,24 @@ def _batch_command(
             where += f", {report.gallery_path.name}"
         typer.echo(f"{counts} in {report.seconds:.1f} s; see {where}")
     raise typer.Exit(report.exit_code)
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt() -> Iterator[None]:
+    """Treat SIGTERM (a job scheduler's or `kill`'s stop) like Ctrl-C: finish, record, exit."""
+
+    def interrupt(signum: int, frame: Any) -> None:
+        raise KeyboardInterrupt
+
+    try:
+        previous = signal.signal(signal.SIGTERM, interrupt)
+    except ValueError:  # not the main thread: leave signals alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
 
 
 def _options_from(params: dict[str, Any]) -> Any:
