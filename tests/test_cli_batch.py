@@ -162,9 +162,26 @@ def test_progress_bar_on_a_terminal_counts_done_failed_remaining():
     screen = Terminal()
     with _Progress(quiet=False, stream=screen) as view:
         assert view.live
-        view(BatchProgress(3, 0, 0, 0))
-        view(BatchProgress(3, 1, 0, 0, ImageResult("a.tif", "done", seconds=1.0)))
-        view(BatchProgress(3, 1, 0, 1, ImageResult("b.tif", "failed", "b.tif: not an image")))
+        view(BatchProgress(4, 0, 0, 0))
+        view(BatchProgress(4, 0, 1, 0, ImageResult("0.tif", "skipped")))
+        view(BatchProgress(4, 1, 1, 0, ImageResult("a.tif", "done", seconds=1.0)))
+        view(BatchProgress(4, 1, 1, 1, ImageResult("b.tif", "failed", "b.tif: bad [bold]x")))
     text = screen.getvalue()
     assert "1 done" in text and "1 failed" in text and "1 remaining" in text
-    assert "b.tif: not an image" in text and "2/3" in text
+    assert "1 image already up to date" in text and "1 up to date" in text
+    assert "2/3" in text  # the bar counts the images being computed, not the skipped one
+    assert "b.tif: bad [bold]x" in text  # messages are printed literally, not as markup
+
+
+def test_plain_lines_count_skipped_images_once(capsys):
+    from imgcut.batch import BatchProgress, ImageResult
+    from imgcut.cli.batch_cmd import _Progress
+
+    with _Progress(quiet=False) as view:  # captured stdout is not a terminal
+        view(BatchProgress(3, 0, 0, 0))
+        for i in range(3):
+            view(BatchProgress(3, 0, i + 1, 0, ImageResult(f"{i}.tif", "skipped")))
+    assert capsys.readouterr().out.splitlines() == [
+        "batch: 3 images",
+        "3 images already up to date (skipped)",
+    ]

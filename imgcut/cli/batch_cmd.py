@@ -22,14 +22,19 @@ __all__ = ["batch_command"]
 
 
 class _Progress:
-    """One progress display for the whole batch: a rich bar on a terminal, else plain lines."""
+    """One progress display for the whole batch: a rich bar on a terminal, else plain lines.
+
+    Images found up to date are counted, not listed one by one, and stay out of the bar: it
+    measures (and its ETA extrapolates) only the images that are computed.
+    """
 
     def __init__(self, *, quiet: bool, stream: Any = None) -> None:
         self.quiet = quiet
         self.stream = stream or sys.stdout
         self.live = (not quiet) and self.stream.isatty()
-        self._bar = None
-        self._task = None
+        self._bar: Any = None
+        self._task: Any = None
+        self._skipped_told = 0
 
     def __enter__(self) -> _Progress:
         if self.live:
@@ -48,8 +53,8 @@ class _Progress:
                 BarColumn(),
                 MofNCompleteColumn(),
                 TextColumn(
-                    "[green]{task.fields[done]} done[/] · [red]{task.fields[failed]} "
-                    "failed[/] · {task.fields[remaining]} remaining"
+                    "[green]{task.fields[done]} done[/] · [red]{task.fields[failed]} failed[/]"
+                    " · {task.fields[remaining]} remaining{task.fields[skipped]}"
                 ),
                 TimeElapsedColumn(),
                 TextColumn("ETA"),
@@ -64,50 +69,49 @@ class _Progress:
         if self._bar is not None:
             self._bar.__exit__(*exc)
 
+    def _say(self, text: str) -> None:
+        if self._bar is not None:
+            self._bar.console.print(text, markup=False, highlight=False, soft_wrap=True)
+        else:
+            print(text, file=self.stream, flush=True)
+
+    def _tell_skipped(self, event: Any) -> None:
+        if event.skipped > self._skipped_told:
+            n = event.skipped
+            self._say(f"{n} image{'s' if n != 1 else ''} already up to date (skipped)")
+            self._skipped_told = n
+
     def __call__(self, event: Any) -> None:
         if self.quiet:
             return
-        done = event.done + event.skipped
-        if self._bar is not None:
-            if self._task is None:
-                self._task = self._bar.add_task(
-                    "batch", total=event.total, done=0, failed=0, remaining=event.total
-                )
-            self._bar.update(
-                self._task,
-                completed=event.finished,
-                done=done,
-                failed=event.failed,
-                remaining=event.remaining,
-            )
-            if event.last is not None and event.last.status == "failed":
-                self._bar.console.print(
-                    f"[red]failed[/] {event.last.path}: {event.last.error}",
-                    markup=True,
-                    highlight=False,
-                    soft_wrap=True,
-                )
-            return
         last = event.last
         if last is None:
-            print(f"batch: {event.total} images", file=self.stream, flush=True)
+            if self._bar is None:
+                self._say(f"batch: {event.total} images")
+            return
+        if last.status == "skipped":
+            if event.remaining == 0:
+                self._tell_skipped(event)
+            return
+        self._tell_skipped(event)
+        if self._bar is not None:
+            work = event.total - event.skipped
+            skipped = f" · {event.skipped} up to date" if event.skipped else ""
+            fields = dict(
+                done=event.done, failed=event.failed, remaining=event.remaining, skipped=skipped
+            )
+            if self._task is None:
+                self._task = self._bar.add_task("batch", total=work, **fields)
+            self._bar.update(self._task, total=work, completed=event.done + event.failed, **fields)
+            if last.status == "failed":
+                self._say(f"failed {last.path}: {last.error}")
             return
         width = len(str(event.total))
-        detail = (
-            last.error
-            if last.status == "failed"
-            else (
-                f"{last.seconds:.1f} s"
-                if last.seconds is not None and last.status == "done"
-                else ""
-            )
-        )
-        print(
-            f"[{event.finished:>{width}}/{event.total}] {last.status:<7} {last.path}"
-            + (f"  ({detail})" if detail else ""),
-            file=self.stream,
-            flush=True,
-        )
+        if last.status == "failed":
+            detail = f"  ({last.error})"
+        else:
+            detail = f"  ({last.seconds:.1f} s)" if last.seconds is not None else ""
+        self._say(f"[{event.finished:>{width}}/{event.total}] {last.status:<7} {last.path}{detail}")
 
 
 def _fail(message: str, code: int) -> typer.Exit:
