@@ -831,6 +831,51 @@ def _import_distributed() -> tuple[Any, Any]:
     return Client, as_completed
 
 
+def _imgcut_version() -> str:
+    """Runs on each dask worker: the imgcut version it would compute with."""
+    import imgcut
+
+    return imgcut.__version__
+
+
+def _version_problems(versions: dict[str, Any], client_version: str) -> str:
+    """One line naming the workers whose imgcut differs from the client's, or ``""``.
+
+    Examples
+    --------
+    >>> line = _version_problems({"tcp://a:1": "0.1.0", "tcp://b:1": "0.2.0"}, "0.1.0")
+    >>> "tcp://b:1 has 0.2.0" in line and "tcp://a:1" not in line
+    True
+    >>> _version_problems({"tcp://a:1": "0.1.0"}, "0.1.0")
+    ''
+    """
+    odd = {w: v for w, v in sorted(versions.items()) if v != client_version}
+    if not odd:
+        return ""
+    listed = ", ".join(f"{w} has {v}" for w, v in list(odd.items())[:3])
+    more = f" and {len(odd) - 3} more" if len(odd) > 3 else ""
+    return (
+        f"dask workers run another imgcut than this client ({client_version}): {listed}{more}; "
+        "install the same version on every worker"
+    )
+
+
+def _check_worker_versions(client: Any) -> None:
+    """Refuse a cluster whose workers cannot import imgcut or run another version of it."""
+    from imgcut import __version__
+
+    try:
+        versions = client.run(_imgcut_version)
+    except Exception as exc:
+        raise ValueError(
+            f"dask workers cannot run imgcut ({_one_line(exc)}); install imgcut {__version__} "
+            "on every worker"
+        ) from exc
+    problem = _version_problems(versions, __version__)
+    if problem:
+        raise ValueError(problem)
+
+
 def _run_dask(
     todo: list[BatchItem],
     options: Any,
@@ -844,6 +889,7 @@ def _run_dask(
     interrupted = False
     futures = {}
     try:
+        _check_worker_versions(client)
         for item in todo:
             future = client.submit(
                 _remote_task,
