@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import heapq
 import math
+import time
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -111,6 +112,8 @@ class SweepCut:
         Ncut and conductance of the prefix set of size ``t + 1`` at index ``t``.
     valid : ndarray of bool, shape (n - 1,)
         Which prefixes were eligible (a strict threshold of ``y`` and ``min_size`` on both sides).
+    order : ndarray of int64, shape (n,)
+        The stable ``argsort`` of ``y``: the prefix of size ``t + 1`` is ``order[:t + 1]``.
     """
 
     mask: np.ndarray
@@ -125,6 +128,7 @@ class SweepCut:
     ncut_values: np.ndarray = field(repr=False)
     conductance_values: np.ndarray = field(repr=False)
     valid: np.ndarray = field(repr=False)
+    order: np.ndarray = field(repr=False)
 
 
 def sweep_cut(
@@ -163,11 +167,13 @@ def sweep_cut(
     Notes
     -----
     Sort the nodes by ``y`` (stable, so ties are broken by node index) and let ``A_t`` be the
-    first ``t + 1`` nodes. ``vol(A_t)`` is a cumulative sum of the sorted degrees. An edge
-    ``(u, v)`` whose endpoints have ranks ``r_u < r_v`` is cut exactly by the prefixes
-    ``t = r_u, ..., r_v - 1``, so adding ``+w_uv`` at ``r_u`` and ``-w_uv`` at ``r_v`` in a
-    difference array and taking its cumulative sum gives ``cut(A_t)`` for all ``t`` at once:
-    O(m) after the O(n log n) sort. Then
+    first ``t + 1`` nodes. ``vol(A_t)`` is a cumulative sum of the sorted degrees. When node
+    ``v`` moves from B to A the cut gains ``v``'s edges to nodes later in the order and loses
+    its edges to earlier ones, ``delta_v = w(v, later) - w(v, earlier)`` (equivalently
+    ``d_v - 2 w(v, A)``); one vectorised pass over the CSR entries (the sign of the rank
+    difference of each edge's ends, summed per row) gives every ``delta_v``, and their
+    cumulative sum in sweep order is ``cut(A_t)`` for all ``t``: O(m) after the O(n log n)
+    sort. Then
 
     ``Ncut(A, B) = cut(A, B) / vol(A) + cut(A, B) / vol(B)``  (Shi & Malik 2000, eq. (2))
 
@@ -218,20 +224,41 @@ def sweep_cut(
             raise ValueError(f"degrees must have shape ({n},), got {d.shape}")
 
     order = np.argsort(y, kind="stable")
-    rank = np.empty(n, dtype=np.int64)
-    rank[order] = np.arange(n, dtype=np.int64)
+    cut = _prefix_cuts(W, order)
+    return _sweep_from_cuts(cut, d, y, order, min_size)
 
-    # Difference array over ranks: edge (u, v) is cut by prefixes min(rank)..max(rank)-1.
-    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(W.indptr))
-    upper = rows < W.indices  # each undirected edge once (W symmetric); diagonal dropped
-    ru = rank[rows[upper]]
-    rv = rank[W.indices[upper]]
-    w = W.data[upper]
-    lo = np.minimum(ru, rv)
-    hi = np.maximum(ru, rv)
-    delta = np.bincount(lo, weights=w, minlength=n) - np.bincount(hi, weights=w, minlength=n)
-    cut = np.maximum(np.cumsum(delta)[: n - 1], 0.0)  # clip round-off below zero
 
+def _row_sums(values: np.ndarray, indptr: np.ndarray) -> np.ndarray:
+    """Exact per-row sums of CSR-aligned ``values`` (empty rows give 0)."""
+    n = indptr.size - 1
+    out = np.zeros(n, dtype=np.float64)
+    nonempty = indptr[1:] > indptr[:-1]
+    if values.size:
+        out[nonempty] = np.add.reduceat(values, indptr[:-1][nonempty])
+    return out
+
+
+def _prefix_cuts(W: sp.csr_matrix, order: np.ndarray) -> np.ndarray:
+    """``cut(A_t)`` for the prefix sets ``A_t = order[:t + 1]``, ``t = 0..n-2``, in O(m).
+
+    When node ``v`` joins the prefix, the cut gains its edges to later nodes and loses its
+    edges to earlier ones: ``delta_v = w(v, later) - w(v, earlier)``; the cut of every prefix
+    is the cumulative sum of these in sweep order (the diagonal is never counted).
+    """
+    n = W.shape[0]
+    rank = np.empty(n, dtype=np.int32 if n < 2**31 else np.int64)
+    rank[order] = np.arange(n, dtype=rank.dtype)
+    step = rank[W.indices]
+    step -= np.repeat(rank, np.diff(W.indptr))
+    np.sign(step, out=step)  # +1: edge to a later node, -1: to an earlier one, 0: diagonal
+    delta = _row_sums(W.data * step, W.indptr)
+    return np.maximum(np.cumsum(delta[order])[: n - 1], 0.0)  # clip round-off below zero
+
+
+def _sweep_from_cuts(
+    cut: np.ndarray, d: np.ndarray, y: np.ndarray, order: np.ndarray, min_size: int
+) -> SweepCut:
+    n = y.size
     d_sorted = d[order]
     vol_a = np.cumsum(d_sorted)[: n - 1]
     vol_b = np.cumsum(d_sorted[::-1])[::-1][1:]  # summed from the other end: no cancellation
@@ -264,6 +291,7 @@ def sweep_cut(
         ncut_values=ncut_values,
         conductance_values=conductance_values,
         valid=valid,
+        order=order,
     )
 
 
@@ -355,8 +383,11 @@ class Hierarchy:
         The splits in the order they were made (cheapest first, as chosen greedily).
     root_eigenvalues, root_residuals : ndarray
         The eigenpairs solved on the whole graph (empty if none were needed).
-    n_eigensolves : int
-        How many eigenproblems were solved.
+    solves : list of dict
+        One entry per eigenproblem solved on a region (nodes, nnz, k, warm_start, solver,
+        iterations, max_residual, seconds), in the order solved.
+    seconds : float
+        Wall time of :func:`recursive_ncut`, eigensolves included.
 
     Notes
     -----
@@ -367,7 +398,13 @@ class Hierarchy:
     splits: list[SplitRecord]
     root_eigenvalues: np.ndarray = field(repr=False)
     root_residuals: np.ndarray = field(repr=False)
-    n_eigensolves: int = 0
+    solves: list[dict[str, Any]] = field(default_factory=list, repr=False)
+    seconds: float = 0.0
+
+    @property
+    def n_eigensolves(self) -> int:
+        """Number of eigenproblems solved (the precomputed root solve not included)."""
+        return len(self.solves)
 
     @property
     def n_regions(self) -> int:
@@ -425,6 +462,7 @@ class _Candidate:
     kind: str
     residual: float
     vectors: np.ndarray | None  # eigenvectors of the region (for warm starts)
+    comp: np.ndarray | None = None  # component labels of the region minus the cut edges
 
 
 def recursive_ncut(
@@ -522,36 +560,57 @@ def recursive_ncut(
     limit = math.inf if max_ncut is None else float(max_ncut)
     rng = np.random.default_rng(seed)
 
-    n_solves = 0
+    t_start = time.perf_counter()
+    solves: list[dict[str, Any]] = []
     root = [np.zeros(0), np.zeros(0)]  # eigenvalues and residuals of the whole-graph solve
 
     def solve(sub: sp.csr_matrix, x0: np.ndarray | None):
-        nonlocal n_solves
-        n_solves += 1
         k = min(n_eigenvectors, sub.shape[0])
         if x0 is not None:
-            x0 = _warm_start(x0, k, rng)
-        return laplacian_eigenpairs(
-            sub, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng, x0=x0
+            # Leave one column of the block random: a block made only of the parent's
+            # vectors can lack any component along the child's lambda_2 eigenvector.
+            x0 = _warm_start(x0, max(1, k - 1), rng)
+        t = time.perf_counter()
+        ep = laplacian_eigenpairs(sub, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng, x0=x0)
+        solves.append(
+            {
+                "nodes": int(sub.shape[0]),
+                "nnz": int(sub.nnz),
+                "k": int(k),
+                "warm_start": x0 is not None,
+                "solver": str(getattr(ep, "solver", solver)),
+                "iterations": int(getattr(ep, "iterations", 0)),
+                "max_residual": float(np.max(ep.residuals)) if len(ep.residuals) else 0.0,
+                "seconds": time.perf_counter() - t,
+            }
         )
+        return ep
 
-    def candidate(tree_id: int, idx: np.ndarray, x0: np.ndarray | None, ep: Any = None):
+    def candidate(tree_id, idx, x0, ep=None, comp=None) -> _Candidate | None:
         m = idx.size
         if m < 2 * min_size or m < 2:
             return None
         sub = W if m == n else W[idx][:, idx]
-        n_comp, comp = connected_components(sub, directed=False)
+        if comp is None:
+            comp = _components(sub)
+        sizes = np.bincount(comp)
         core = None
-        if n_comp > 1:
-            sizes = np.bincount(comp)
-            big = int(np.argmax(sizes))  # first largest: component of the earliest node wins ties
-            mask = comp == big
-            if m - sizes[big] >= min_size:
+        if np.count_nonzero(sizes) > 1:
+            real = np.flatnonzero(sizes >= min_size)  # components that can be regions
+            if real.size == 0:
+                return None  # only dust: no split leaves a piece of min_size on both sides
+            if real.size >= 2:
+                # Free split (cut = 0): the largest real component against the rest; dust
+                # (components < min_size) stays with the rest. Ties: the earliest component.
+                big = int(real[np.argmax(sizes[real])])
+                mask = comp == big
                 vec = x0 if x0 is not None else (None if ep is None else ep.vectors)
-                return _Candidate(0.0, tree_id, idx, mask, 0.0, 0.0, 0.0, "components", 0.0, vec)
-            # The other components are too small to stand alone: cut the largest one and
-            # attach them (no edges, so no change to the cut) to its larger side below.
-            core = np.flatnonzero(mask)
+                return _Candidate(
+                    0.0, tree_id, idx, mask, 0.0, 0.0, 0.0, "components", 0.0, vec, comp
+                )
+            # One real component plus dust: cut the real one; the dust (no edges to it, so
+            # no change to the cut) joins the larger side below.
+            core = np.flatnonzero(comp == real[0])
             sub = sub[core][:, core]
             if x0 is not None:
                 x0 = x0[core]
@@ -565,31 +624,39 @@ def recursive_ncut(
         residuals = np.asarray(ep.residuals, dtype=np.float64)
         if vectors.shape[1] < 2:
             return None
+        degrees = _row_sums(sub.data, sub.indptr)
+        y2, lam2, res2 = _fiedler(vectors, values, residuals, degrees)
+        order = np.argsort(y2, kind="stable")
         try:
-            sw = sweep_cut(sub, vectors[:, 1], min_size=min_size)
+            sw = _sweep_from_cuts(_prefix_cuts(sub, order), degrees, y2, order, min_size)
         except ValueError:
             return None
-        mask = sw.mask
+        solid = _solid_cut(sub, sw, min_size)
+        if solid is None:
+            return None
+        t, mask, cut_comp = solid
         if core is not None:
             full = np.zeros(m, dtype=bool)
             full[core[mask]] = True
-            if mask.sum() >= (~mask).sum():
-                full[~np.isin(np.arange(m), core)] = True
+            if 2 * mask.sum() >= mask.size:
+                full[np.setdiff1d(np.arange(m), core, assume_unique=True)] = True
             mask = full
-        lam2 = max(float(values[1]), 0.0)
-        if core is not None:
-            lam2 = 0.0  # the region itself is disconnected
+            padded = np.zeros((m, vectors.shape[1]))
+            padded[core] = vectors
+            vectors = padded
+            cut_comp = None  # the children find their own components
         return _Candidate(
-            sw.ncut,
+            float(sw.ncut_values[t]),
             tree_id,
             idx,
             mask,
-            sw.conductance,
+            float(sw.conductance_values[t]),
             lam2,
             sw.min_conductance,
             "sweep",
-            float(residuals[1]) if residuals.size > 1 else float("nan"),
-            vectors if core is None else None,
+            res2,
+            vectors,
+            cut_comp,
         )
 
     root_idx = np.arange(n, dtype=np.int64)
@@ -643,7 +710,8 @@ def recursive_ncut(
             break
         for child_id, child_idx, child_mask in ((a_id, idx_a, mask), (b_id, idx_b, ~mask)):
             x0 = None if cand.vectors is None else cand.vectors[child_mask]
-            c = candidate(child_id, child_idx, x0)
+            child_comp = None if cand.comp is None else cand.comp[child_mask]
+            c = candidate(child_id, child_idx, x0, comp=child_comp)
             if c is not None:
                 heapq.heappush(heap, (c.ncut, counter, c))
                 counter += 1
@@ -653,26 +721,122 @@ def recursive_ncut(
         splits=splits,
         root_eigenvalues=root[0],
         root_residuals=root[1],
-        n_eigensolves=n_solves,
+        solves=solves,
+        seconds=time.perf_counter() - t_start,
     )
 
 
-def _warm_start(x0: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
-    """Initial block for a child's eigenproblem from the parent's eigenvectors.
+def _fiedler(
+    vectors: np.ndarray, values: np.ndarray, residuals: np.ndarray, degrees: np.ndarray
+) -> tuple[np.ndarray, float, float]:
+    """The second eigenvector, made D-orthogonal to the constant vector.
 
-    The parent's second eigenvector was used for the cut, so it is nearly constant on each
-    child; the others (the constant first one, then the third, ...) carry the child's
-    structure. Missing columns are filled with seeded noise.
+    On a connected graph the smallest eigenvector of ``(D - W) y = lambda D y`` is constant
+    and the second one is D-orthogonal to it (Shi & Malik 2000, section 2: ``y^T D 1 = 0``).
+    When the bottom of the spectrum is (numerically) degenerate -- two nearly separate
+    parts give ``lambda_2 ~ 0`` -- a solver may return any basis of that eigenspace, and its
+    second column can be nearly constant, useless for a cut. So take the combination
+    ``y = Y u`` of the (D-orthonormal) vectors with ``u`` orthogonal to ``c = Y^T D 1`` that
+    has the smallest Rayleigh quotient ``u^T diag(lambda) u`` (Rayleigh-Ritz in that
+    subspace); for a well separated spectrum this is the second column itself.
+    Returns the vector, its Rayleigh quotient and the largest residual of the columns used.
+    """
+    c = vectors.T @ degrees  # constant component of each column (y^T D 1)
+    k = c.size
+    norm = np.linalg.norm(c)
+    if norm == 0:
+        return vectors[:, 1], max(float(values[1]), 0.0), float(residuals[1])
+    # Orthonormal basis of the complement of c by a Householder-free QR of [c, I].
+    q, _ = np.linalg.qr(np.column_stack([c / norm, np.eye(k)]))
+    basis = q[:, 1:k]
+    small = basis.T @ (values[:, None] * basis)
+    w, U = np.linalg.eigh(0.5 * (small + small.T))
+    u = basis @ U[:, 0]
+    used = np.abs(u) > 1e-8
+    return vectors @ u, max(float(w[0]), 0.0), float(residuals[used].max())
+
+
+def _components(G: sp.csr_matrix) -> np.ndarray:
+    """Connected-component label of every node of a symmetric graph.
+
+    For a symmetric matrix the strongly connected components of the directed view are the
+    connected components, and scipy finds them from the CSR arrays alone (its undirected
+    mode first builds the transpose, several times slower on image graphs).
+    """
+    _, comp = connected_components(G, directed=True, connection="strong")
+    return comp
+
+
+def _cut_components(W: sp.csr_matrix, mask: np.ndarray) -> np.ndarray:
+    """Component labels of ``W`` with the edges between ``mask`` and ``~mask`` removed."""
+    side_row = np.repeat(mask, np.diff(W.indptr))
+    keep = side_row == mask[W.indices]
+    kept = np.concatenate([[0], np.cumsum(keep)])
+    G = sp.csr_matrix(
+        (np.ones(int(kept[-1]), dtype=np.int8), W.indices[keep], kept[W.indptr]), shape=W.shape
+    )
+    return _components(G)
+
+
+def _solid_cut(
+    W: sp.csr_matrix, sw: SweepCut, min_size: int, max_tries: int = 8
+) -> tuple[int, np.ndarray, np.ndarray | None] | None:
+    """The cheapest sweep threshold whose sides each hold a connected piece of min_size nodes.
+
+    A side made only of pieces smaller than ``min_size`` would be dissolved by the
+    fragment merging of :func:`imgcut.regions.enforce_connectivity`; on graphs with nearly
+    isolated specks such sides can have tiny Ncut values. Thresholds are tried in increasing
+    Ncut order, at most ``max_tries`` of them. Returns the prefix index, the mask and the
+    component labels of the two sides (reused by the children), or None.
+    """
+    if min_size <= 1:
+        return sw.size_a - 1, sw.mask, None
+    costs = np.where(sw.valid, sw.ncut_values, np.inf)
+    for t in np.argsort(costs, kind="stable")[:max_tries]:
+        if not np.isfinite(costs[t]):
+            break
+        mask = np.zeros(sw.mask.size, dtype=bool)
+        mask[sw.order[: t + 1]] = True
+        comp = _cut_components(W, mask)
+        sizes = np.bincount(comp)
+        on_a = np.zeros(sizes.size, dtype=bool)
+        on_a[comp[mask]] = True
+        if sizes[on_a].max() >= min_size and sizes[~on_a & (sizes > 0)].max() >= min_size:
+            return int(t), mask, comp
+    return None
+
+
+def _warm_start(x0: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
+    """Well-conditioned initial block for a child's eigenproblem from the parent's vectors.
+
+    The parent's second eigenvector was used for the cut, so on each child it is nearly
+    constant, i.e. nearly parallel to the (constant) first one; the third and later ones
+    carry the child's structure. Columns are taken in the order first, third, ..., second,
+    orthonormalised by Gram-Schmidt, and a column that is numerically dependent on the
+    ones kept (relative norm below 1e-3 after projection) is replaced by seeded noise:
+    block eigensolvers such as LOBPCG need a start block of full rank.
     """
     x0 = np.asarray(x0, dtype=np.float64)
     if x0.ndim == 1:
         x0 = x0[:, None]
+    m = x0.shape[0]
+    k = min(k, m)
     cols = [0] + list(range(2, x0.shape[1])) + [1]
-    block = x0[:, cols[: min(k, x0.shape[1])]]
-    if block.shape[1] < k:
-        extra = rng.standard_normal((x0.shape[0], k - block.shape[1]))
-        block = np.hstack([block, extra])
-    return block
+    candidates = [x0[:, c] for c in cols if c < x0.shape[1]]
+    kept: list[np.ndarray] = []
+    while len(kept) < k:
+        v = candidates.pop(0) if candidates else rng.standard_normal(m)
+        norm0 = np.linalg.norm(v)
+        for q in kept:  # modified Gram-Schmidt, twice is enough (Giraud et al. 2005)
+            v = v - (q @ v) * q
+        for q in kept:
+            v = v - (q @ v) * q
+        norm = np.linalg.norm(v)
+        if norm0 > 0 and norm > 1e-3 * norm0:
+            kept.append(v / norm)
+        elif not candidates and norm0 == 0:
+            continue  # an all-zero random draw cannot happen in practice; draw again
+    return np.column_stack(kept)
 
 
 # --------------------------------------------------------------------------------------------
