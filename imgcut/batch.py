@@ -985,7 +985,8 @@ def run_batch(
     Raises
     ------
     ValueError
-        If the input folder does not exist, `workers` < 1, or the output folder cannot be made.
+        If the input folder does not exist or is the output folder, `workers` < 1, the output
+        folder cannot be made, or dask workers lack this version of imgcut.
     ImportError
         If `scheduler` is given and dask.distributed is not installed.
 
@@ -997,6 +998,23 @@ def run_batch(
     describes a consistent state. With N local workers each process runs single-threaded BLAS, so
     the speed-up on N cores is close to N when the images are alike (Amdahl: the serial part is
     discovery, hashing and the summary).
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np
+    >>> from PIL import Image
+    >>> from imgcut.runner import SegmentOptions
+    >>> root = Path(tempfile.mkdtemp())
+    >>> (root / "in" / "well1").mkdir(parents=True)
+    >>> img = np.zeros((10, 12), np.uint8); img[:, 6:] = 200
+    >>> Image.fromarray(img).save(root / "in" / "well1" / "a.png")
+    >>> _ = (root / "in" / "b.png").write_text("not an image")
+    >>> report = run_batch(root / "in", root / "out", SegmentOptions(n_regions=2, radius=2),
+    ...                    workers=1)
+    >>> [(r.path, r.status, r.regions) for r in report.results]
+    [('b.png', 'failed', None), ('well1/a.png', 'done', 2)]
+    >>> report.exit_code, (root / "out" / "well1" / "a.overlay.png").is_file()
+    (1, True)
     """
     started = time.perf_counter()
     if workers is not None and workers < 1:
