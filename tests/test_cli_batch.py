@@ -185,3 +185,51 @@ def test_plain_lines_count_skipped_images_once(capsys):
         "batch: 3 images",
         "3 images already up to date (skipped)",
     ]
+
+
+def test_channel_option_reaches_every_image(tmp_path):
+    import tifffile
+
+    src = tmp_path / "in"
+    src.mkdir()
+    left_right = np.full((12, 16), 100, np.uint16)
+    left_right[:, 8:] = 3000
+    top_bottom = np.full((12, 16), 100, np.uint16)
+    top_bottom[6:] = 3000
+    for i in range(2):
+        tifffile.imwrite(
+            src / f"two{i}.tif",
+            np.stack([left_right, top_bottom]),
+            imagej=True,
+            metadata={"axes": "CYX"},
+        )
+    out = tmp_path / "out"
+    result = runner.invoke(app, ["batch", str(src), "--out", str(out), *FAST, "--channel", "1"])
+    assert result.exit_code == 0, result.output
+    for i in range(2):
+        labels = np.asarray(Image.open(out / f"two{i}.labels.png"))
+        # Channel 1 is split top/bottom; channel 0 would have split left/right.
+        assert labels[0, 0] == labels[0, -1] == 1 and labels[-1, 0] == 2
+        assert json.loads((out / f"two{i}.json").read_text())["options"]["channel"] == [1]
+
+
+def test_objects_mode_fills_the_objects_column(tmp_path):
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "scripts"))
+    try:
+        from make_sample_images import make_nuclei  # our own synthetic nuclei generator
+    finally:
+        sys.path.pop(0)
+    import tifffile
+
+    src = tmp_path / "in"
+    src.mkdir()
+    image, truth = make_nuclei(seed=3, shape=(96, 96), n=5)
+    tifffile.imwrite(src / "field.tif", image)
+    out = tmp_path / "out"
+    result = runner.invoke(app, ["batch", str(src), "--out", str(out), "--mode", "objects"])
+    assert result.exit_code == 0, result.output
+    [row] = read_summary(out)
+    labels = np.asarray(Image.open(out / "field.labels.png"))
+    assert row.objects == labels.max() >= 1  # one label per object, background 0
+    assert (labels == 0).any()
+    assert json.loads((out / "field.json").read_text())["options"]["mode"] == "objects"
