@@ -19,6 +19,7 @@ Guarantees
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import csv
 import io
 import json
@@ -28,7 +29,7 @@ import signal
 import sys
 import time
 from collections import deque
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any
@@ -1036,81 +1037,134 @@ def run_batch(
             f"cannot create output folder {str(out_root)!r}: {_one_line(exc)}"
         ) from exc
 
-    _remove_partials(out_root)
-    recorder = _Recorder(items, out_root)
-    counts = dict.fromkeys(_STATUSES, 0)
-    peaks: dict[str, float] = {}
+    with _batch_lock(out_root):
+        _remove_partials(out_root)
+        recorder = _Recorder(items, out_root)
+        counts = dict.fromkeys(_STATUSES, 0)
+        peaks: dict[str, float] = {}
 
-    def emit(last: ImageResult | None) -> None:
-        if progress is not None:
-            progress(
-                BatchProgress(len(items), counts["done"], counts["skipped"], counts["failed"], last)
-            )
-
-    def record(result: ImageResult) -> None:
-        counts[result.status] += 1
-        if result.peak_memory_mb is not None and result.worker:
-            peaks[result.worker] = max(peaks.get(result.worker, 0.0), result.peak_memory_mb)
-        recorder.add(result)
-        emit(result)
-
-    def finish(item: BatchItem, outcome: _Outcome) -> None:
-        overlay = _relative_overlay(pipeline, item, options, out_root) if outcome.ok else ""
-        record(_result_from(item, outcome, overlay, roots))
-
-    emit(None)
-    todo: list[BatchItem] = []
-    for item in items:
-        if item.problem:
-            record(ImageResult(item.relative, "failed", item.problem))
-            continue
-        previous = None
-        if not force:
-            try:
-                previous = pipeline.up_to_date(item, options)
-            except Exception:  # an unreadable input is reported when it is run
-                previous = None
-        if previous is not None:
-            record(
-                ImageResult(
-                    item.relative,
-                    "skipped",
-                    regions=previous.get("regions"),
-                    objects=previous.get("objects"),
-                    seconds=previous.get("seconds"),
-                    peak_memory_mb=previous.get("peak_memory_mb"),
-                    overlay=_relative_overlay(pipeline, item, options, out_root),
+        def emit(last: ImageResult | None) -> None:
+            if progress is not None:
+                progress(
+                    BatchProgress(
+                        len(items), counts["done"], counts["skipped"], counts["failed"], last
+                    )
                 )
-            )
-        else:
-            todo.append(item)
 
-    interrupted = False
-    if todo:
-        if scheduler:
-            interrupted = _run_dask(todo, options, pipeline, scheduler, finish)
-        else:
-            interrupted = _run_local(todo, options, pipeline, min(n_workers, len(todo)), finish)
+        def record(result: ImageResult) -> None:
+            counts[result.status] += 1
+            if result.peak_memory_mb is not None and result.worker:
+                peaks[result.worker] = max(peaks.get(result.worker, 0.0), result.peak_memory_mb)
+            recorder.add(result)
+            emit(result)
 
-    recorder.flush()
-    results = recorder.ordered()
-    report = BatchReport(
-        results=results,
-        out_dir=out_root,
-        summary_path=out_root / SUMMARY_NAME,
-        record_path=out_root / BATCH_RECORD_NAME,
-        seconds=time.perf_counter() - started,
-        workers=n_workers,
-        scheduler=scheduler,
-        peak_memory_mb_per_worker=peaks,
-        interrupted=interrupted,
-    )
-    if gallery:
-        from imgcut.gallery import write_gallery
+        def finish(item: BatchItem, outcome: _Outcome) -> None:
+            overlay = _relative_overlay(pipeline, item, options, out_root) if outcome.ok else ""
+            record(_result_from(item, outcome, overlay, roots))
 
-        report.gallery_path = write_gallery(out_root, results)
-    _write_batch_record(report, options, patterns, force)
+        emit(None)
+        todo: list[BatchItem] = []
+        for item in items:
+            if item.problem:
+                record(ImageResult(item.relative, "failed", item.problem))
+                continue
+            previous = None
+            if not force:
+                try:
+                    previous = pipeline.up_to_date(item, options)
+                except Exception:  # an unreadable input is reported when it is run
+                    previous = None
+            if previous is not None:
+                record(
+                    ImageResult(
+                        item.relative,
+                        "skipped",
+                        regions=previous.get("regions"),
+                        objects=previous.get("objects"),
+                        seconds=previous.get("seconds"),
+                        peak_memory_mb=previous.get("peak_memory_mb"),
+                        overlay=_relative_overlay(pipeline, item, options, out_root),
+                    )
+                )
+            else:
+                todo.append(item)
+
+        interrupted = False
+        if todo:
+            if scheduler:
+                interrupted = _run_dask(todo, options, pipeline, scheduler, finish)
+            else:
+                interrupted = _run_local(todo, options, pipeline, min(n_workers, len(todo)), finish)
+
+        recorder.flush()
+        results = recorder.ordered()
+        report = BatchReport(
+            results=results,
+            out_dir=out_root,
+            summary_path=out_root / SUMMARY_NAME,
+            record_path=out_root / BATCH_RECORD_NAME,
+            seconds=time.perf_counter() - started,
+            workers=n_workers,
+            scheduler=scheduler,
+            peak_memory_mb_per_worker=peaks,
+            interrupted=interrupted,
+        )
+        if gallery:
+            from imgcut.gallery import write_gallery
+
+            report.gallery_path = write_gallery(out_root, results)
+        _write_batch_record(report, options, patterns, force)
     return report
+
+
+LOCK_NAME = ".imgcut-batch.lock"
+
+
+def _lock_holder(path: Path) -> tuple[int, str] | None:
+    try:
+        pid, host = path.read_text(encoding="utf-8").split()[:2]
+        return int(pid), host
+    except (OSError, ValueError):
+        return None
+
+
+@contextlib.contextmanager
+def _batch_lock(out_root: Path) -> Iterator[None]:
+    """Hold ``.imgcut-batch.lock`` in the output folder while a batch writes there.
+
+    Two batches writing into one folder would remove each other's temporary files and race on
+    the summary; the second is refused with a message naming the first. A lock whose process
+    is gone (a killed batch on this machine) is taken over.
+    """
+    import socket
+
+    import psutil
+
+    path = out_root / LOCK_NAME
+    host = socket.gethostname()
+    for _ in range(3):
+        try:
+            fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+        except FileExistsError:
+            holder = _lock_holder(path)
+            if holder is not None and (holder[1] != host or psutil.pid_exists(holder[0])):
+                raise ValueError(
+                    f"another imgcut batch (process {holder[0]} on {holder[1]}) is writing into "
+                    f"{str(out_root)!r}; wait for it, or delete {LOCK_NAME} there if it is gone"
+                ) from None
+            with contextlib.suppress(OSError):  # stale: its batch was killed
+                path.unlink()
+            continue
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(f"{os.getpid()} {host}\n")
+        break
+    else:  # pragma: no cover - only if another batch keeps recreating the lock
+        raise ValueError(f"cannot lock the output folder {str(out_root)!r}")
+    try:
+        yield
+    finally:
+        with contextlib.suppress(OSError):
+            path.unlink()
 
 
 def _remove_partials(out_root: Path) -> list[Path]:

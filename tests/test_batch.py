@@ -475,3 +475,29 @@ def test_workers_run_single_threaded_blas(tmp_path):
         # OpenBLAS/OpenMP default to one thread per core (2 here); the initializer caps them.
         assert record["n"] >= 1 and set(record["threads"]) == {1}
         assert record["omp_env"] == "1"
+
+
+def test_second_batch_into_the_same_folder_is_refused_stale_lock_taken_over(tmp_path):
+    import socket
+
+    src = tmp_path / "in"
+    src.mkdir()
+    (src / "f0.tif").write_text("IMG1")
+    out = tmp_path / "out"
+    out.mkdir()
+    lock = out / ".imgcut-batch.lock"
+    lock.write_text(f"{os.getpid()} {socket.gethostname()}\n")  # a live batch holds it
+    with pytest.raises(ValueError, match=f"another imgcut batch \\(process {os.getpid()}"):
+        run_batch(src, out, workers=1, gallery=False, pipeline=_FakePipeline())
+    assert not (out / "summary.csv").exists()
+
+    finished = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    lock.write_text(f"{finished.stdout.strip()} {socket.gethostname()}\n")  # its batch is gone
+    report = run_batch(src, out, workers=1, gallery=False, pipeline=_FakePipeline())
+    assert [r.status for r in report.results] == ["done"]
+    assert not lock.exists()  # released at the end
