@@ -140,6 +140,7 @@ def test_workers_must_be_positive(tmp_path):
         run_batch(tmp_path, tmp_path / "out", workers=0, pipeline=_FakePipeline())
 
 
+@pytest.mark.slow
 def test_dead_worker_fails_only_its_image(tmp_path):
     src = tmp_path / "in"
     src.mkdir()
