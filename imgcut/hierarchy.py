@@ -274,6 +274,7 @@ def merge_regions(
     boundary: np.ndarray,
     *,
     tensor: np.ndarray | None = None,
+    min_area: int = 0,
 ) -> RegionHierarchy:
     """Greedy merging of adjacent regions by mean boundary strength along their common border.
 
@@ -287,6 +288,10 @@ def merge_regions(
         Oriented cue tensor (:func:`imgcut.cues.combine_cues`).  When given, a border's strength
         is measured across the border's own orientation (one straight segment per arc, as in the
         oriented watershed transform) instead of taking ``boundary``.
+    min_area : int, default 0
+        Regions smaller than this many pixels are merged first (at level 0, into the neighbour
+        with the weakest border), whatever their border strength: thin slivers that the
+        watershed leaves along thick boundary ridges never survive to coarse levels.
 
     Returns
     -------
@@ -335,15 +340,24 @@ def merge_regions(
     m = len(edges)
     strength = total / np.maximum(count, 1)
     levels = np.zeros(m, dtype=np.float64)
-    # adjacency: region -> {neighbour: [sum, count, list of base-edge ids]}
+    area = np.bincount(base.ravel() - 1, minlength=n).astype(np.int64)
+    small = float(min_area)
+
+    def key(rec, i, j):
+        # regions below min_area merge first (keys below 0, i.e. under every level >= 0)
+        b = rec[0] / rec[1]
+        return b - 2.0 if (area[i] < small or area[j] < small) else b
+
+    # adjacency: region -> {neighbour: [sum, count, list of base-edge ids, heap key]}
     adj: list[dict[int, list]] = [dict() for _ in range(n)]
     heap = []
     for e in range(m):
         i, j = int(edges[e, 0]), int(edges[e, 1])
-        rec = [float(total[e]), float(count[e]), [e]]
+        rec = [float(total[e]), float(count[e]), [e], 0.0]
+        rec[3] = key(rec, i, j)
         adj[i][j] = rec
         adj[j][i] = rec
-        heap.append((strength[e], i, j))
+        heap.append((rec[3], i, j))
     heapq.heapify(heap)
     alive = np.ones(n, dtype=bool)
     merges: list[float] = []
@@ -353,7 +367,7 @@ def merge_regions(
         if not (alive[i] and alive[j]):
             continue
         rec = adj[i].get(j)
-        if rec is None or rec[0] / rec[1] != s:
+        if rec is None or rec[3] != s:
             continue  # stale heap entry
         current = max(current, s)
         merges.append(current)
@@ -361,6 +375,8 @@ def merge_regions(
         # merge the smaller neighbourhood into the larger (i survives)
         if len(adj[i]) < len(adj[j]):
             i, j = j, i
+        was_small = area[i] < small
+        area[i] += area[j]
         del adj[i][j]
         del adj[j][i]
         for k, rk in adj[j].items():
@@ -369,16 +385,23 @@ def merge_regions(
             if ri is None:
                 adj[i][k] = rk
                 adj[k][i] = rk
-                merged = rk
             else:
                 ri[0] += rk[0]
                 ri[1] += rk[1]
                 ri[2].extend(rk[2])
-                merged = ri
+        # re-key the borders whose sums changed (all of them if i stopped being small)
+        grew = was_small and area[i] >= small
+        for k in list(adj[i]) if grew else list(adj[j]):
+            rk = adj[i][k]
+            rk[3] = key(rk, i, k)
             a, b = (i, k) if i < k else (k, i)
-            heapq.heappush(heap, (merged[0] / merged[1], a, b))
+            heapq.heappush(heap, (rk[3], a, b))
         adj[j] = {}
         alive[j] = False
+    if small > 0 and len(merges):
+        # merges of small regions carry keys < 0; report their level as 0 (below any level)
+        merges = [max(v, 0.0) for v in merges]
+        levels = np.maximum(levels, 0.0)
     return RegionHierarchy(
         base_labels=base,
         edges=edges.astype(np.int64),

@@ -122,3 +122,21 @@ def test_bad_input_raises():
         h.labels_with(0)
     with pytest.raises(ValueError, match="finite"):
         h.labels_at(np.nan)
+
+
+def test_min_area_merges_small_regions_first_at_level_zero():
+    # A 2 x 2 sliver inside a strong ring would otherwise survive to the top level.
+    lab = np.ones((20, 20), int)
+    lab[:, 10:] = 2
+    lab[4:6, 4:6] = 3
+    b = np.zeros(lab.shape)
+    b[:, 9:11] = 0.3
+    b[3:7, 3:7] = 0.9
+    b[4:6, 4:6] = 0.9
+    plain = hierarchy.merge_regions(lab, b)
+    assert plain.n_regions_at(0.5) == 2 and plain.n_regions_at(0.2) == 3
+    h = hierarchy.merge_regions(lab, b, min_area=10)
+    assert h.merge_levels[0] == 0.0
+    assert h.n_regions_at(0.0) == 2  # the sliver is gone at every level >= 0
+    assert h.n_regions_at(0.5) == 1
+    assert np.all(np.diff(h.merge_levels) >= 0)
