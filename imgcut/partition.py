@@ -769,12 +769,12 @@ def _components(G: sp.csr_matrix) -> np.ndarray:
 
 def _cut_components(W: sp.csr_matrix, mask: np.ndarray) -> np.ndarray:
     """Component labels of ``W`` with the edges between ``mask`` and ``~mask`` removed."""
-    side_row = np.repeat(mask, np.diff(W.indptr))
-    keep = side_row == mask[W.indices]
-    kept = np.concatenate([[0], np.cumsum(keep)])
-    G = sp.csr_matrix(
-        (np.ones(int(kept[-1]), dtype=np.int8), W.indices[keep], kept[W.indptr]), shape=W.shape
-    )
+    keep = mask[W.indices]
+    keep ^= np.repeat(~mask, np.diff(W.indptr))  # True where both ends are on the same side
+    kept = np.zeros(keep.size + 1, dtype=np.int64)
+    np.cumsum(keep, out=kept[1:])
+    # float64 data: scipy's graph validation would otherwise copy the whole matrix
+    G = sp.csr_matrix((np.ones(int(kept[-1])), W.indices[keep], kept[W.indptr]), shape=W.shape)
     return _components(G)
 
 
@@ -811,10 +811,10 @@ def _warm_start(x0: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
 
     The parent's second eigenvector was used for the cut, so on each child it is nearly
     constant, i.e. nearly parallel to the (constant) first one; the third and later ones
-    carry the child's structure. Columns are taken in the order first, third, ..., second,
-    orthonormalised by Gram-Schmidt, and a column that is numerically dependent on the
-    ones kept (relative norm below 1e-3 after projection) is replaced by seeded noise:
-    block eigensolvers such as LOBPCG need a start block of full rank.
+    carry the child's structure. Columns are taken in the order first, third, ..., second
+    and orthonormalised by QR; a column that is numerically dependent on the earlier ones
+    (``|R_jj|`` below 1e-3 of its norm) is replaced by seeded noise: block eigensolvers
+    such as LOBPCG need a start block of full rank.
     """
     x0 = np.asarray(x0, dtype=np.float64)
     if x0.ndim == 1:
@@ -822,21 +822,17 @@ def _warm_start(x0: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
     m = x0.shape[0]
     k = min(k, m)
     cols = [0] + list(range(2, x0.shape[1])) + [1]
-    candidates = [x0[:, c] for c in cols if c < x0.shape[1]]
-    kept: list[np.ndarray] = []
-    while len(kept) < k:
-        v = candidates.pop(0) if candidates else rng.standard_normal(m)
-        norm0 = np.linalg.norm(v)
-        for q in kept:  # modified Gram-Schmidt, twice is enough (Giraud et al. 2005)
-            v = v - (q @ v) * q
-        for q in kept:
-            v = v - (q @ v) * q
-        norm = np.linalg.norm(v)
-        if norm0 > 0 and norm > 1e-3 * norm0:
-            kept.append(v / norm)
-        elif not candidates and norm0 == 0:
-            continue  # an all-zero random draw cannot happen in practice; draw again
-    return np.column_stack(kept)
+    block = x0[:, [c for c in cols if c < x0.shape[1]][:k]]
+    if block.shape[1] < k:
+        block = np.hstack([block, rng.standard_normal((m, k - block.shape[1]))])
+    for _ in range(3):  # QR; dependent columns are replaced by noise and the block redone
+        q, r = np.linalg.qr(block)
+        scale = np.linalg.norm(block, axis=0)
+        weak = np.abs(np.diag(r)) <= 1e-3 * np.where(scale > 0, scale, 1.0)
+        if not weak.any():
+            return q
+        block[:, weak] = rng.standard_normal((m, int(weak.sum())))
+    return np.linalg.qr(block)[0]
 
 
 # --------------------------------------------------------------------------------------------
