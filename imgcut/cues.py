@@ -477,9 +477,10 @@ def local_cues(
 
 
 def _lookup_weight(weights: dict[str, float], name: str) -> float:
-    """Weight of an entry: by full name, by cue name, then by cue family (``channel``)."""
-    cue = name.split("@")[0]
-    for key in (name, cue, cue.split("_")[0]):
+    """Weight of an entry: by full name, cue name, family and scale, then family alone."""
+    cue, _, sigma = name.partition("@")
+    family = cue.split("_")[0]
+    for key in (name, cue, f"{family}@{sigma}", family):
         if key in weights:
             return float(weights[key])
     return 0.0

@@ -31,7 +31,10 @@ class BoundaryPreset:
     n_textons : int
         Texton count.
     cue_weights : tuple of (str, float)
-        Weight per cue name or ``"<cue>@<sigma>"`` entry (:func:`imgcut.cues.combine_cues`).
+        Weight per cue (``"brightness"``, ``"colour_a"``, ``"texture"``, ``"channel"`` for every
+        extra channel, …); see :func:`imgcut.cues.combine_cues`.
+    scale_weights : tuple of float
+        Extra factor for the first, second, … scale of every cue (finest first).
     spectral_weight : float
         Weight β of the spectral tensor: ``T = (1 − β) T_local + β T_spectral``; 0 skips the
         eigenvector computation.
@@ -43,6 +46,8 @@ class BoundaryPreset:
         Grid coarsening of the spectral graph.
     watershed_smooth : float
         σ of the smoothing before the watershed over-segmentation.
+    min_area : int
+        Regions under this many pixels are merged first (:func:`imgcut.hierarchy.merge_regions`).
     oriented : bool
         Measure each border across its own orientation (oriented watershed arcs).
     default_level : float
@@ -65,18 +70,37 @@ class BoundaryPreset:
         ("colour_b", 1.0),
         ("texture", 1.0),
     )
+    scale_weights: tuple[float, ...] = (2.0, 1.0, 0.5)
     spectral_weight: float = 0.0
     spectral_vectors: int = 8
     spectral_radius: float = 3.0
     spectral_downsample: int = 2
     watershed_smooth: float = 1.0
-    oriented: bool = False
-    default_level: float = 0.5
-    level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(2, 19))
+    min_area: int = 0
+    oriented: bool = True
+    default_level: float = 0.65
+    level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(6, 19))
 
     def weights(self) -> dict[str, float]:
-        """Cue weights as a dict for :func:`imgcut.cues.combine_cues`."""
-        return dict(self.cue_weights)
+        """Cue weights as a dict for :func:`imgcut.cues.combine_cues`.
+
+        Keys are cue names (every scale of that cue) and ``"<cue>@<sigma>"`` entries carrying
+        the per-scale factors; entries take precedence over cue names.
+        """
+        out = dict(self.cue_weights)
+        cues = {name for name, _ in self.cue_weights}
+        for cue in cues:
+            sigmas = (
+                self.brightness_sigmas
+                if cue == "brightness"
+                else self.texture_sigmas
+                if cue == "texture"
+                else self.colour_sigmas
+            )
+            for k, sigma in enumerate(sigmas):
+                factor = self.scale_weights[k] if k < len(self.scale_weights) else 1.0
+                out[f"{cue}@{sigma:g}"] = out[cue] * factor
+        return out
 
     def cue_options(self) -> dict:
         """Keyword arguments of :func:`imgcut.cues.local_cues`."""
