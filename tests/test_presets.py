@@ -47,3 +47,18 @@ def test_as_dict_round_trip():
     p = presets.PRESETS["fluorescence"]
     d = p.as_dict()
     assert presets.BoundaryPreset(**d) == p
+
+
+def test_scale_weights_reach_every_entry():
+    # The photo preset weights every cue's finest scale by scale_weights[0], etc.; the combined
+    # tensor must equal the hand-made weighted mean of the entries.
+    p = presets.get_preset("photo")
+    rng = np.random.default_rng(2)
+    c = cues.local_cues(rng.random((20, 22, 3)), **p.cue_options())
+    w = p.weights()
+    by_entry = np.array([w[n] for n in c.names])
+    expected = np.tensordot(by_entry / by_entry.sum(), c.tensors, axes=1)
+    np.testing.assert_allclose(cues.combine_cues(c, w), expected, rtol=1e-5, atol=1e-7)
+    assert w["brightness@2"] == pytest.approx(
+        p.scale_weights[0] * dict(p.cue_weights)["brightness"]
+    )
