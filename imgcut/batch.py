@@ -986,8 +986,9 @@ def run_batch(
     Raises
     ------
     ValueError
-        If the input folder does not exist or is the output folder, `workers` < 1, the output
-        folder cannot be made, or dask workers lack this version of imgcut.
+        If the input folder does not exist, holds no image, or is the output folder;
+        `workers` < 1; the output folder cannot be made or another batch is writing there; or
+        dask workers lack this version of imgcut.
     ImportError
         If `scheduler` is given and dask.distributed is not installed.
 
@@ -1030,6 +1031,9 @@ def run_batch(
     in_root = Path(input_dir).resolve()
     items = plan_batch(in_root, out_root, patterns=patterns)
     roots = sorted({in_root, out_root}, key=lambda p: -len(str(p)))  # longest first
+    if not items:
+        what = f"matching {', '.join(patterns)}" if patterns else f"ending in {IMAGE_SUFFIXES}"
+        raise ValueError(f"no images found under {str(in_root)!r} {what}")
     try:
         out_root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

@@ -59,6 +59,7 @@ def test_segment_options_are_shared_not_copied():
         (["{src}", "--out", "o", "-k", "0"], "--regions must be a count"),
         (["{src}", "--out", "o", "--radius", "-1"], "--radius must be > 0"),
         (["{src}", "--out", "o", "--glob", "/abs/*.tif"], "relative to the input folder"),
+        (["{src}", "--out", "o", "--glob", "*.tiff"], "no images found"),
     ],
 )
 def test_usage_errors_exit_2_with_one_line(tmp_path, monkeypatch, args, message):
