@@ -616,7 +616,7 @@ def segment_objects(
         The eigenvector of each split is computed on a grid coarsened by this factor ``f``
         (block means of the height map, block maxima of the valley map, so thin valleys
         survive) and interpolated bilinearly to the pixels; the sweep and its Ncut value use
-        the full-resolution graph. None picks ``max(1, diameter // 14)``. A factor f makes
+        the full-resolution graph. None picks ``max(1, round(diameter / 14))``. A factor f makes
         every eigenproblem about f² times smaller; on BBBC039 f = 2 gave the same F1 as f = 1.
     seed : None, int or numpy.random.Generator, default 0
         Seeds the eigensolver start blocks.
@@ -701,6 +701,8 @@ def segment_objects(
         raise ValueError(f"pixel_size must be finite and > 0 (micrometres), got {pixel_size}")
     if object_diameter is not None and not (np.isfinite(object_diameter) and object_diameter > 0):
         raise ValueError(f"object_diameter must be finite and > 0, got {object_diameter}")
+    if coarsen is not None and not (float(coarsen) == int(coarsen) and int(coarsen) >= 1):
+        raise ValueError(f"coarsen must be None or an integer >= 1, got {coarsen}")
     rng = np.random.default_rng(seed)
     params = {
         "object_diameter": object_diameter,
@@ -763,7 +765,11 @@ def segment_objects(
     rejected = 0
     next_label = 1
     pad = int(np.ceil(radius)) + 1
-    factor = max(1, int(np.sqrt(4.0 * obj_area / np.pi) // 14)) if coarsen is None else int(coarsen)
+    factor = (
+        max(1, int(round(np.sqrt(4.0 * obj_area / np.pi) / 14.0)))
+        if coarsen is None
+        else int(coarsen)
+    )
     for i, sl in enumerate(ndi.find_objects(comp)):
         if sl is None:
             continue

@@ -288,6 +288,14 @@ def test_deterministic_and_record_is_json():
     assert isinstance(a, ObjectSegmentation)
 
 
+@pytest.mark.parametrize("coarsen", [1, 2, 3])
+def test_touching_pair_split_on_every_grid(coarsen):
+    img, truth = blob_field([(48, 37), (48, 58)], seed=11)
+    res = segment_objects(img, min_area=20, object_diameter=24, coarsen=coarsen)
+    assert res.n_objects == 2
+    assert best_iou(truth, res.labels).min() > 0.75
+
+
 def test_diameter_in_micrometres_equals_pixels():
     img, _ = blob_field([(48, 37), (48, 58)], seed=9)
     a = segment_objects(img, object_diameter=24)
@@ -309,6 +317,8 @@ def test_diameter_in_micrometres_equals_pixels():
         (np.zeros((4, 4)), {"shape_weight": 2}, "shape_weight"),
         (np.zeros((4, 4)), {"pixel_size": -1}, "pixel_size"),
         (np.zeros((4, 4)), {"object_diameter": 0}, "object_diameter"),
+        (np.zeros((4, 4)), {"coarsen": 0}, "coarsen"),
+        (np.zeros((4, 4)), {"coarsen": 1.5}, "coarsen"),
     ],
 )
 def test_bad_inputs(image, kwargs, match):
