@@ -305,3 +305,49 @@ def test_recursive_errors():
     with pytest.raises(ValueError, match="min_size"):
         recursive_ncut(W, n_regions=2, min_size=0)
     assert recursive_ncut(W, n_regions=1).labels.tolist() == [1, 1]
+
+
+def test_recursive_uses_the_fiedler_direction_of_a_degenerate_null_space():
+    # Two cliques joined by a 1e-13 edge: lambda_2 ~ 0 is numerically degenerate with
+    # lambda_1 = 0, and a solver may return any D-orthonormal basis of that eigenspace, even
+    # one whose second column is the constant vector; the cut must still separate the
+    # cliques (Shi & Malik 2000, sec. 2: y is D-orthogonal to the constant vector).
+    B = np.ones((8, 8)) - np.eye(8)
+    W = sp.block_diag([B, B]).tolil()
+    W[7, 8] = W[8, 7] = 1e-13
+    perm = np.random.default_rng(0).permutation(16)  # node order unrelated to the cliques
+    W = W.tocsr()[perm][:, perm]
+    truth = (perm >= 8).astype(int)
+    lam, Y = eig_reference(W)
+    d = np.asarray(W.sum(axis=1)).ravel()
+    const = np.ones(16) / np.sqrt(d.sum())  # D-normalised null vector
+    split = np.where(truth == 1, 1.0, -1.0) / np.sqrt(d.sum())  # D-orthogonal to it
+    Yr = np.column_stack([split, const, Y[:, 2]])  # the constant second: still a valid basis
+
+    class Pairs:  # the fields recursive_ncut reads from an Eigenpairs
+        values = lam[:3]
+        vectors = Yr
+        residuals = np.zeros(3)
+
+    h = recursive_ncut(W, n_regions=2, eigenpairs=Pairs(), seed=0)
+    assert same_partition(h.labels, truth)
+    assert h.splits[0].ncut < 1e-12
+
+
+def test_recursive_keeps_dust_out_of_the_region_count():
+    # Two 12-cliques joined weakly, plus three isolated 2-node specks. With min_size=5 the
+    # specks cannot be regions: the first split is between the cliques (not a free split
+    # peeling a speck), and every region holds a clique.
+    B = np.ones((12, 12)) - np.eye(12)
+    P = np.array([[0, 1.0], [1, 0]])
+    W = sp.block_diag([B, B, P, P, P]).tolil()
+    W[11, 12] = W[12, 11] = 0.05
+    W = W.tocsr()
+    h = recursive_ncut(W, n_regions=2, min_size=5, seed=0)
+    assert h.n_regions == 2 and h.splits[0].kind == "sweep"
+    lab = h.labels
+    assert len(set(lab[:12].tolist())) == 1 and len(set(lab[12:24].tolist())) == 1
+    assert lab[0] != lab[12]
+    # Only dust left to split: asking for more regions cannot make a speck a region.
+    h5 = recursive_ncut(W, n_regions=5, min_size=5, max_ncut=0.5, seed=0)
+    assert h5.n_regions == 2
