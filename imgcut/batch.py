@@ -125,7 +125,8 @@ class ImageResult:
     path : str
         Input path relative to the input folder (``/`` separators).
     status : str
-        ``"done"`` (computed now), ``"skipped"`` (outputs up to date) or ``"failed"``.
+        ``"done"`` (computed now), ``"skipped"`` (outputs up to date), ``"failed"``, or
+        ``"pending"`` (not run yet: the batch is running or was interrupted).
     error : str
         One-line error message when failed, else ``""``.
     regions : int or None
@@ -623,7 +624,7 @@ class _Recorder:
     """Collects results, rewrites summary.csv atomically every few seconds and at the end."""
 
     def __init__(self, items: Sequence[BatchItem], out_root: Path) -> None:
-        self.order = {item.relative: i for i, item in enumerate(items)}
+        self.paths = [item.relative for item in items]
         self.results: dict[str, ImageResult] = {}
         self.out_root = out_root
         self.last_write = 0.0
@@ -634,7 +635,8 @@ class _Recorder:
             self.flush()
 
     def ordered(self) -> list[ImageResult]:
-        return sorted(self.results.values(), key=lambda r: self.order.get(r.path, 0))
+        """One row per image of the batch, in path order; ``pending`` until it has an outcome."""
+        return [self.results.get(p) or ImageResult(p, "pending") for p in self.paths]
 
     def flush(self) -> None:
         _atomic_write_text(self.out_root / SUMMARY_NAME, _summary_text(self.ordered()))

@@ -37,7 +37,7 @@ th,td{border-bottom:1px solid #ddd;padding:4px 8px;text-align:left;vertical-alig
 th{cursor:pointer;user-select:none;background:#f4f4f4;position:sticky;top:0}
 th.asc::after{content:" \\25B2"} th.desc::after{content:" \\25BC"}
 td.num{text-align:right;font-variant-numeric:tabular-nums}
-tr.failed td{background:#fdecea} tr.skipped td{color:#555}
+tr.failed td{background:#fdecea} tr.skipped td{color:#555} tr.pending td{color:#999}
 img{display:block;max-width:none;image-rendering:auto}
 .none{color:#999;font-size:small}
 """
