@@ -141,6 +141,9 @@ class ImageResult:
         Overlay image path relative to the output folder (``""`` when there is none).
     worker : str
         Which worker ran it (``"pid:1234"`` or a dask worker address); not in the CSV.
+    thumbnail : str
+        The gallery thumbnail of the overlay as a ``data:`` URI, when made by the worker
+        (``""`` otherwise: the gallery makes it); not in the CSV.
     """
 
     path: str
@@ -152,6 +155,7 @@ class ImageResult:
     peak_memory_mb: float | None = None
     overlay: str = ""
     worker: str = ""
+    thumbnail: str = field(default="", repr=False)
 
     def row(self) -> dict[str, str]:
         """The CSV row: every column of `SUMMARY_COLUMNS` as text."""
@@ -483,6 +487,21 @@ class _Outcome:
     peak_memory_mb: float | None = None
     worker: str = ""
     computed: Any = None
+    thumbnail: str = ""
+
+
+def _thumbnail(pipeline: Any, item: BatchItem, options: Any) -> str:
+    """The gallery thumbnail of a freshly written overlay (``""`` if it cannot be made).
+
+    Made where the image was processed, so that a large batch does not end with the client
+    shrinking every overlay one after another.
+    """
+    from imgcut.gallery import thumbnail_data_uri
+
+    try:
+        return thumbnail_data_uri(pipeline.overlay_path(item, options))
+    except Exception:  # the gallery falls back to a plain link
+        return ""
 
 
 def _local_task(pipeline: Any, item: BatchItem, options: Any) -> _Outcome:
@@ -508,13 +527,15 @@ def _local_task(pipeline: Any, item: BatchItem, options: Any) -> _Outcome:
             worker=worker,
             peak_memory_mb=_peak_memory_mb(),
         )
+    seconds = time.perf_counter() - start
     return _Outcome(
         True,
         regions=numbers.get("regions"),
         objects=numbers.get("objects"),
-        seconds=time.perf_counter() - start,
+        seconds=seconds,
         peak_memory_mb=_peak_memory_mb(),
         worker=worker,
+        thumbnail=_thumbnail(pipeline, item, options),
     )
 
 
@@ -736,6 +757,7 @@ def _result_from(
         peak_memory_mb=outcome.peak_memory_mb,
         overlay=overlay,
         worker=outcome.worker,
+        thumbnail=outcome.thumbnail,
     )
 
 
@@ -922,6 +944,7 @@ def _run_dask(
                     outcome.regions = numbers.get("regions")
                     outcome.objects = numbers.get("objects")
                     outcome.seconds += time.perf_counter() - start
+                    outcome.thumbnail = _thumbnail(pipeline, item, options)
                 except Exception as exc:
                     outcome = _Outcome(False, _one_line(exc), worker=outcome.worker)
                 outcome.computed = None

@@ -244,7 +244,8 @@ def write_gallery(
     out_dir : path-like
         Batch output folder; overlay paths in `rows` are relative to it.
     rows : sequence
-        Result rows, see `render_gallery`.
+        Result rows, see `render_gallery`; a row's ``thumbnail`` (a ``data:image/`` URI), when
+        present, is used instead of reading its overlay again.
     name : str, default "index.html"
         File name of the page.
     title : str, optional
@@ -279,7 +280,10 @@ def write_gallery(
     thumbnails: dict[str, str] = {}
     for row in rows:
         overlay = str(_value(row, "overlay") or "")
-        if overlay and overlay not in thumbnails:
+        ready = str(_value(row, "thumbnail") or "")
+        if overlay and ready.startswith("data:image/"):
+            thumbnails[overlay] = ready  # made by the worker that wrote the overlay
+        elif overlay and overlay not in thumbnails:
             try:
                 thumbnails[overlay] = thumbnail_data_uri(root / overlay, size=thumbnail_size)
             except (OSError, ValueError, SyntaxError):  # unreadable overlay: link only

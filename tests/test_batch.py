@@ -264,6 +264,7 @@ def test_outputs_mirror_the_tree_and_decode(mixed_run):
         assert labels[0, 0] == 1 and labels[0, -1] == 2
         assert record["run"]["peak_memory_mb"] > 0 and record["run"]["worker"].startswith("pid:")
         assert result.overlay == f"{rel.parent / rel.stem}.overlay.png".lstrip("./")
+        assert result.thumbnail.startswith("data:image/jpeg;base64,")  # made in the worker
     assert not list((root / "out").rglob("*.imgcut-partial"))
 
 

@@ -151,3 +151,20 @@ def test_absolute_or_escaping_overlay_paths_are_refused(bad):
     }
     with pytest.raises(ValueError, match="relative"):
         render_gallery([row])
+
+
+def test_thumbnail_made_by_a_worker_is_used_as_is(tmp_path):
+    ready = "data:image/jpeg;base64,/9j/AAAA"  # the overlay file itself need not be read again
+    row = {
+        "path": "x.tif",
+        "status": "done",
+        "error": "",
+        "regions": 1,
+        "objects": None,
+        "seconds": 1.0,
+        "peak_memory_mb": None,
+        "overlay": "x.overlay.png",
+        "thumbnail": ready,
+    }
+    text = write_gallery(tmp_path, [row]).read_text()
+    assert f'src="{ready}"' in text
