@@ -352,3 +352,17 @@ def test_objects_mode_needs_one_channel(tmp_path):
     Image.fromarray(np.zeros((8, 8, 3), np.uint8)).save(path)
     with pytest.raises(ImageReadError, match=r"rgb\.png: objects mode .* 3; .*--channel"):
         process_image(path, tmp_path / "out", SegmentOptions(mode="objects"))
+
+
+def test_objects_mode_empty_field_gives_header_only_table(tmp_path):
+    import tifffile
+
+    noise = 100 + np.random.default_rng(1).normal(0, 10, (40, 50))
+    tifffile.imwrite(tmp_path / "empty.tif", noise.astype(np.uint16))
+    opts = SegmentOptions(mode="objects", masks=True)
+    report = process_image(tmp_path / "empty.tif", tmp_path / "out", opts)
+    assert report.regions == report.objects == 0
+    table = (tmp_path / "out" / "empty.regions.csv").read_text().splitlines()
+    assert len(table) == 1 and table[0].startswith("label,area,")
+    assert not np.asarray(Image.open(report.outputs["labels"])).any()
+    assert up_to_date(tmp_path / "empty.tif", tmp_path / "out", opts) is not None
