@@ -497,5 +497,7 @@ def image_hierarchy(
     p = get_preset(preset)
     gb = global_boundary(image, preset=p, seed=seed)
     base = oversegment(gb.strength, smooth=p.watershed_smooth)
-    h = merge_regions(base, gb.strength, tensor=gb.tensor if p.oriented else None)
+    h = merge_regions(
+        base, gb.strength, tensor=gb.tensor if p.oriented else None, min_area=p.min_area
+    )
     return replace(h, boundary=gb.strength, default_level=p.default_level)
