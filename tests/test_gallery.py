@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from PIL import Image
 
-from imgcut.gallery import render_gallery, thumbnail_data_uri, write_gallery
+from imgcut.gallery import GALLERY_COLUMNS, render_gallery, thumbnail_data_uri, write_gallery
 
 
 class _Collector(HTMLParser):
@@ -168,3 +168,73 @@ def test_thumbnail_made_by_a_worker_is_used_as_is(tmp_path):
     }
     text = write_gallery(tmp_path, [row]).read_text()
     assert f'src="{ready}"' in text
+
+
+_DOM_STUB = """
+// A minimal stand-in for the browser DOM, enough for the gallery's sort script.
+function classes(){const s=new Set();return {add:(...a)=>a.forEach(x=>s.add(x)),
+  remove:(...a)=>a.forEach(x=>s.delete(x)),contains:x=>s.has(x)};}
+function cell(attrs){return {attrs,classList:classes(),listeners:{},
+  getAttribute(n){return n in attrs?attrs[n]:null;},hasAttribute(n){return n in attrs;},
+  addEventListener(t,f){this.listeners[t]=f;}};}
+const spec=JSON.parse(process.argv[process.argv.length-1]);
+const heads=spec.heads.map(cell);
+const body={rows:spec.rows.map(r=>({path:r[0],cells:r.map(v=>cell({"data-v":v}))})),
+  appendChild(row){this.rows=this.rows.filter(x=>x!==row);this.rows.push(row);}};
+const table={tHead:{rows:[{cells:heads}]},tBodies:[body]};
+global.document={getElementById:()=>table};
+eval(spec.script);
+const out=[];
+for(const i of spec.clicks){heads[i].listeners.click();out.push(body.rows.map(r=>r.path));}
+console.log(JSON.stringify(out));
+"""
+
+
+def test_inline_sort_orders_numbers_numerically_and_toggles(tmp_path):
+    """Run the page's own script under Node.js with a stub DOM (skipped without node)."""
+    import json
+    import re
+    import shutil
+    import subprocess
+
+    node = shutil.which("node")
+    if node is None:
+        pytest.skip("Node.js not installed: cannot run the inline script")
+    seconds = {"a.tif": 10.0, "B.tif": 9.0, "c.tif": None, "d.tif": 100.5}
+    rows = [
+        {
+            "path": p,
+            "status": "done",
+            "error": "",
+            "regions": 1,
+            "objects": None,
+            "seconds": s,
+            "peak_memory_mb": None,
+            "overlay": "",
+        }
+        for p, s in seconds.items()
+    ]
+    page = render_gallery(rows)
+    script = re.search(r"<script>(.*)</script>", page, re.S).group(1)
+    # Heads and rows as the page has them: a thumbnail column, then GALLERY_COLUMNS.
+    heads = [{}] + [{"data-col": n, "data-num": str(int(num))} for n, _, num in GALLERY_COLUMNS]
+    bodies = re.findall(r'<tr class="done">(.*?)</tr>', page, re.S)
+    table = [
+        [path, *re.findall(r'data-v="([^"]*)"', b)] for path, b in zip(seconds, bodies, strict=True)
+    ]
+    names = [n for n, _, _ in GALLERY_COLUMNS]
+    by_seconds, by_path = 1 + names.index("seconds"), 1 + names.index("path")
+    spec = {
+        "heads": heads,
+        "rows": table,
+        "script": script,
+        "clicks": [by_seconds, by_seconds, by_path],
+    }
+    done = subprocess.run(
+        [node, "-e", _DOM_STUB, "--", json.dumps(spec)], capture_output=True, text=True, timeout=60
+    )
+    assert done.returncode == 0, done.stderr
+    ascending, descending, by_name = json.loads(done.stdout)
+    assert ascending == ["B.tif", "a.tif", "d.tif", "c.tif"]  # 9 < 10 < 100.5, empty last
+    assert descending == ["d.tif", "a.tif", "B.tif", "c.tif"]  # empty stays last
+    assert by_name == ["a.tif", "B.tif", "c.tif", "d.tif"]  # text: case-insensitive
