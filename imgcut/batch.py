@@ -1184,6 +1184,10 @@ def _batch_lock(out_root: Path) -> Iterator[None]:
             with contextlib.suppress(OSError):  # stale: its batch was killed
                 path.unlink()
             continue
+        except OSError as exc:
+            raise ValueError(
+                f"output folder {str(out_root)!r} is not writable ({exc.strerror or exc})"
+            ) from exc
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(f"{os.getpid()} {host}\n")
         break

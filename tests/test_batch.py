@@ -504,3 +504,22 @@ def test_second_batch_into_the_same_folder_is_refused_stale_lock_taken_over(tmp_
     report = run_batch(src, out, workers=1, gallery=False, pipeline=_FakePipeline())
     assert [r.status for r in report.results] == ["done"]
     assert not lock.exists()  # released at the end
+
+
+def test_unwritable_output_folder_is_a_value_error(tmp_path, monkeypatch):
+    import errno
+
+    import imgcut.batch as batch
+
+    real_open = os.open
+
+    def refuse_lock(path, *args, **kwargs):  # what a read-only share answers (root ignores modes)
+        if str(path).endswith(batch.LOCK_NAME):
+            raise PermissionError(errno.EACCES, "Permission denied", str(path))
+        return real_open(path, *args, **kwargs)
+
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "a.tif").write_text("IMG1")
+    monkeypatch.setattr(os, "open", refuse_lock)
+    with pytest.raises(ValueError, match="is not writable \\(Permission denied\\)"):
+        run_batch(tmp_path / "in", tmp_path / "out", pipeline=_FakePipeline())
