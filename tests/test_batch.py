@@ -207,13 +207,6 @@ def make_mixed_folder(root: Path) -> dict[str, str]:
     expected["plate/truncated.png"] = expected["plate/notes.tif"] = "failed"
     os.symlink(root / "moved-away.png", root / "plate" / "link.png")  # a broken link
     expected["plate/link.png"] = "failed"
-    locked = root / "plate" / "locked.png"
-    locked.write_bytes(good_png)
-    locked.chmod(0)
-    if os.access(locked, os.R_OK):  # root reads anything: the case cannot be made here
-        locked.unlink()
-    else:
-        expected["plate/locked.png"] = "failed"
     return expected
 
 
@@ -244,8 +237,23 @@ def test_good_images_done_bad_ones_recorded(mixed_run):
         "corrupt" in errors["plate/truncated.png"] or "truncated" in errors["plate/truncated.png"]
     )
     assert "no such file" in errors["plate/link.png"].lower()
-    if "plate/locked.png" in errors:
-        assert "permission" in errors["plate/locked.png"].lower()
+
+
+def test_unreadable_file_is_recorded(tmp_path):
+    from imgcut.runner import SegmentOptions
+
+    src = tmp_path / "in"
+    _tiny_pngs(src, 1)
+    locked = src / "locked.png"
+    locked.write_bytes((src / "f00.png").read_bytes())
+    locked.chmod(0)
+    if os.access(locked, os.R_OK):
+        pytest.skip("permission bits do not stop this user (root): no unreadable file possible")
+    report = run_batch(src, tmp_path / "out", SegmentOptions(**OPTIONS), workers=1)
+    status = {r.path: (r.status, r.error) for r in report.results}
+    assert status["f00.png"][0] == "done" and status["locked.png"][0] == "failed"
+    assert status["locked.png"][1].startswith("locked.png")
+    assert "permission denied" in status["locked.png"][1].lower()
 
 
 def test_outputs_mirror_the_tree_and_decode(mixed_run):
