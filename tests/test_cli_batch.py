@@ -234,3 +234,22 @@ def test_objects_mode_fills_the_objects_column(tmp_path):
     assert row.objects == labels.max() >= 1  # one label per object, background 0
     assert (labels == 0).any()
     assert json.loads((out / "field.json").read_text())["options"]["mode"] == "objects"
+
+
+def test_unreachable_scheduler_is_one_line_exit_1(tmp_path, monkeypatch):
+    pytest.importorskip("distributed")
+    import imgcut.batch
+
+    def refuse(*args, **kwargs):
+        raise OSError("Timed out trying to connect to tcp://127.0.0.1:9 after 30 s")
+
+    monkeypatch.setattr(imgcut.batch, "_import_distributed", lambda: (refuse, None))
+    src = _folder(tmp_path, 1)
+    result = runner.invoke(
+        app, ["batch", str(src), "--out", str(tmp_path / "o"), "--scheduler", "tcp://127.0.0.1:9"]
+    )
+    assert result.exit_code == 1
+    assert result.output.strip().endswith(
+        "Timed out trying to connect to tcp://127.0.0.1:9 after 30 s"
+    )
+    assert "Traceback" not in result.output

@@ -238,6 +238,12 @@ def _batch_command(
         if debug:
             raise
         raise _fail(f"{type(exc).__name__}: {exc}", 1) from None
+    except Exception as exc:  # a failure of the batch machinery itself (not of one image)
+        if debug:
+            raise
+        raise _fail(
+            f"{type(exc).__name__}: {exc} (rerun with --debug for the traceback)", 1
+        ) from None
 
     counts = (
         f"{report.count('done')} done, {report.count('skipped')} already up to date, "
