@@ -375,10 +375,11 @@ def region_table(labels: np.ndarray, image: np.ndarray | None = None) -> dict[st
         flat = labels.ravel()
         idx = table["label"]
         planes = [intensity] if intensity.ndim == 2 else list(np.moveaxis(intensity, -1, 0))
-        for c, plane in enumerate(planes):
-            suffix = "" if intensity.ndim == 2 else f"_{c}"
+        suffixes = [""] if intensity.ndim == 2 else [f"_{c}" for c in range(len(planes))]
+        for c, suffix in enumerate(suffixes):
             key = "intensity_mean" if intensity.ndim == 2 else f"intensity_mean-{c}"
             table[f"mean_intensity{suffix}"] = raw[key]
+        for plane, suffix in zip(planes, suffixes, strict=True):
             sums = np.bincount(flat, weights=plane.ravel(), minlength=int(flat.max()) + 1)
             table[f"integrated_intensity{suffix}"] = sums[idx]
     return table
