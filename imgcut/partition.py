@@ -771,11 +771,24 @@ def _cut_components(W: sp.csr_matrix, mask: np.ndarray) -> np.ndarray:
     """Component labels of ``W`` with the edges between ``mask`` and ``~mask`` removed."""
     keep = mask[W.indices]
     keep ^= np.repeat(~mask, np.diff(W.indptr))  # True where both ends are on the same side
-    kept = np.zeros(keep.size + 1, dtype=np.int64)
-    np.cumsum(keep, out=kept[1:])
+    indptr = _kept_indptr(keep, W.indptr)
     # float64 data: scipy's graph validation would otherwise copy the whole matrix
-    G = sp.csr_matrix((np.ones(int(kept[-1])), W.indices[keep], kept[W.indptr]), shape=W.shape)
+    G = sp.csr_matrix((np.ones(int(indptr[-1])), W.indices[keep], indptr), shape=W.shape)
     return _components(G)
+
+
+def _kept_indptr(keep: np.ndarray, indptr: np.ndarray) -> np.ndarray:
+    """Row pointer of a CSR matrix after dropping the entries where ``keep`` is False."""
+    n = indptr.size - 1
+    counts = np.zeros(n, dtype=np.int64)
+    nonempty = indptr[1:] > indptr[:-1]
+    if keep.size:
+        counts[nonempty] = np.add.reduceat(
+            keep.view(np.int8), indptr[:-1][nonempty], dtype=np.int64
+        )
+    out = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(counts, out=out[1:])
+    return out
 
 
 def _solid_cut(
