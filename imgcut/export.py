@@ -133,8 +133,9 @@ def encode_labels(labels: np.ndarray, *, label_format: str = "png") -> bytes:
     _check_choice("label_format", label_format, LABEL_FORMATS)
     labels = np.asarray(labels)
     if labels.ndim != 2 or labels.dtype.kind not in "iu":
-        raise ValueError(f"labels must be a 2-D integer array (H, W), got {labels.dtype} "
-                         f"{labels.shape}")
+        raise ValueError(
+            f"labels must be a 2-D integer array (H, W), got {labels.dtype} {labels.shape}"
+        )
     top = int(labels.max()) if labels.size else 0
     if labels.size and int(labels.min()) < 0:
         raise ValueError("labels must be ≥ 0 (0 = unlabelled)")
@@ -353,9 +354,7 @@ def region_table(labels: np.ndarray, image: np.ndarray | None = None) -> dict[st
     if image is not None:
         intensity = np.asarray(image)
         if intensity.shape[:2] != labels.shape:
-            raise ValueError(
-                f"image shape {intensity.shape} does not match labels {labels.shape}"
-            )
+            raise ValueError(f"image shape {intensity.shape} does not match labels {labels.shape}")
         intensity = intensity.astype(np.float64, copy=False)
         props.append("intensity_mean")
     raw = regionprops_table(labels, intensity_image=intensity, properties=props)
@@ -460,8 +459,10 @@ def _dumps_compact_lists(value: Any, indent: int = 2, level: int = 0) -> str:
     if isinstance(value, dict):
         if not value:
             return "{}"
-        items = [f"{inner}{json.dumps(k)}: {_dumps_compact_lists(v, indent, level + 1)}"
-                 for k, v in value.items()]
+        items = [
+            f"{inner}{json.dumps(k)}: {_dumps_compact_lists(v, indent, level + 1)}"
+            for k, v in value.items()
+        ]
         return "{\n" + ",\n".join(items) + "\n" + pad + "}"
     if isinstance(value, list):
         if all(not isinstance(v, (dict, list)) for v in value):
@@ -560,8 +561,13 @@ def render_eigenvector_grid(
         finite = panel[np.isfinite(panel)]
         lim = float(np.max(np.abs(finite))) if finite.size else 1.0
         lim = lim if lim > 0 else 1.0
-        ax.imshow(np.ma.masked_invalid(panel), cmap=colour_map, vmin=-lim, vmax=lim,
-                  interpolation="nearest")
+        ax.imshow(
+            np.ma.masked_invalid(panel),
+            cmap=colour_map,
+            vmin=-lim,
+            vmax=lim,
+            interpolation="nearest",
+        )
         title = f"y{j + 1}"
         if eigenvalues is not None and j < len(eigenvalues):
             title += f"  λ={float(eigenvalues[j]):.3g}"
@@ -602,8 +608,9 @@ def render_outputs(
     ['x.labels.png', 'x.masks/region-0001.png', 'x.masks/region-0002.png', 'x.overlay.png', \
 'x.regions.csv']
     """
-    names = output_names(stem, label_format=label_format, masks=masks,
-                         eigenvectors=eigenvector_grid)
+    names = output_names(
+        stem, label_format=label_format, masks=masks, eigenvectors=eigenvector_grid
+    )
     files = {
         names["labels"]: encode_labels(labels, label_format=label_format),
         names["overlay"]: encode_png(render_overlay(image, labels, fill=fill)),
@@ -681,11 +688,19 @@ def write_outputs(
     >>> sorted(paths)
     ['labels', 'overlay', 'record', 'regions']
     """
-    names = output_names(stem, label_format=label_format, masks=masks,
-                         eigenvectors=eigenvector_grid)
+    names = output_names(
+        stem, label_format=label_format, masks=masks, eigenvectors=eigenvector_grid
+    )
     files = render_outputs(
-        stem, image, labels, eigenvectors=eigenvectors, eigenvalues=eigenvalues,
-        label_format=label_format, fill=fill, masks=masks, eigenvector_grid=eigenvector_grid,
+        stem,
+        image,
+        labels,
+        eigenvectors=eigenvectors,
+        eigenvalues=eigenvalues,
+        label_format=label_format,
+        fill=fill,
+        masks=masks,
+        eigenvector_grid=eigenvector_grid,
     )
     if record is not None:
         files[names["record"]] = record_to_json(record)

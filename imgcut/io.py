@@ -347,7 +347,7 @@ def _read_pil(path: Path, max_pixels: int) -> tuple[np.ndarray, str, str, _Sourc
         data = data.astype(np.uint8) * np.uint8(255)
         notes.append("bilevel samples mapped to 0/255")
     stack = data[..., None] if data.ndim == 3 else data  # (frames, H, W, C)
-    axes = ("YX" if data.ndim == 3 else "YXS")
+    axes = "YX" if data.ndim == 3 else "YXS"
     shape = tuple(data.shape[1:])
     if stack.shape[0] > 1:
         axes, shape = "T" + axes, tuple(data.shape)
@@ -515,9 +515,7 @@ def _reason(exc: BaseException) -> str:
 # atomic writes
 
 
-def atomic_write(
-    path: str | os.PathLike[str], data: bytes, *, overwrite: bool = True
-) -> Path:
+def atomic_write(path: str | os.PathLike[str], data: bytes, *, overwrite: bool = True) -> Path:
     """Write ``data`` to ``path`` so that the file is either complete or absent.
 
     Parameters
@@ -561,9 +559,7 @@ def atomic_write(
     path = Path(path)
     if not overwrite and path.exists():
         raise FileExistsError(f"{path}: already exists")
-    fd, tmp_name = tempfile.mkstemp(
-        dir=path.parent, prefix=f".{path.name}.", suffix=PARTIAL_SUFFIX
-    )
+    fd, tmp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=PARTIAL_SUFFIX)
     tmp = Path(tmp_name)
     try:
         with os.fdopen(fd, "wb") as fh:

@@ -185,8 +185,7 @@ class SegmentOptions:
                 "foreground": self.foreground,
                 "seed": self.seed,
             }
-            optional = {"min_area": self.min_area, "max_ncut": self.max_ncut,
-                        "radius": self.radius}
+            optional = {"min_area": self.min_area, "max_ncut": self.max_ncut, "radius": self.radius}
         else:
             kwargs = {
                 "n_regions": AUTO_REGION_CAP if self.n_regions is None else self.n_regions,
@@ -246,70 +245,127 @@ def _check(o: SegmentOptions) -> None:
         return isinstance(value, (int, np.integer)) and not isinstance(value, bool) and value >= low
 
     def choice(option: str, valid: tuple[str, ...]) -> None:
-        need(getattr(o, option) in valid, option, f"one of {', '.join(valid)}",
-             getattr(o, option))
+        need(getattr(o, option) in valid, option, f"one of {', '.join(valid)}", getattr(o, option))
 
     if o.n_regions is None:
-        need(o.max_ncut is not None, "n_regions",
-             "a count ≥ 1, or automatic together with a max_ncut threshold", None)
+        need(
+            o.max_ncut is not None,
+            "n_regions",
+            "a count ≥ 1, or automatic together with a max_ncut threshold",
+            None,
+        )
     else:
         need(integer(o.n_regions, 1), "n_regions", "an integer ≥ 1", o.n_regions)
     if o.max_ncut is not None:
-        need(number(o.max_ncut) and 0 < o.max_ncut <= 2, "max_ncut",
-             "in (0, 2] (normalized cut values lie in [0, 2])", o.max_ncut)
+        need(
+            number(o.max_ncut) and 0 < o.max_ncut <= 2,
+            "max_ncut",
+            "in (0, 2] (normalized cut values lie in [0, 2])",
+            o.max_ncut,
+        )
     choice("method", METHODS)
     choice("kway_method", KWAY_METHODS)
     if o.max_ncut is not None and o.mode == "regions":
-        need(o.method == "recursive", "max_ncut", "used with method recursive only",
-             o.method)
+        need(o.method == "recursive", "max_ncut", "used with method recursive only", o.method)
     need(isinstance(o.connected, (bool, np.bool_)), "connected", "True or False", o.connected)
-    need(o.radius is None or (number(o.radius) and np.isfinite(o.radius) and o.radius > 0),
-         "radius", "> 0 (pixels)", o.radius)
+    need(
+        o.radius is None or (number(o.radius) and np.isfinite(o.radius) and o.radius > 0),
+        "radius",
+        "> 0 (pixels)",
+        o.radius,
+    )
     choice("cue", CUES)
     for name in ("sigma_feature", "sigma_distance", "sigma_edge"):
         v = getattr(o, name)
-        need(v is None or (number(v) and np.isfinite(v) and v > 0), name,
-             "> 0 (or unset for the automatic value)", v)
-    need(o.min_area is None or integer(o.min_area, 1), "min_area", "an integer ≥ 1 (pixels)",
-         o.min_area)
+        need(
+            v is None or (number(v) and np.isfinite(v) and v > 0),
+            name,
+            "> 0 (or unset for the automatic value)",
+            v,
+        )
+    need(
+        o.min_area is None or integer(o.min_area, 1),
+        "min_area",
+        "an integer ≥ 1 (pixels)",
+        o.min_area,
+    )
     choice("solver", _solvers())
     need(number(o.tol) and 0 < o.tol < 1, "tol", "in (0, 1)", o.tol)
     need(o.maxiter is None or integer(o.maxiter, 1), "maxiter", "an integer ≥ 1", o.maxiter)
     need(o.seed is None or integer(o.seed, 0), "seed", "an integer ≥ 0", o.seed)
-    need(o.n_eigenvectors is None or integer(o.n_eigenvectors, 2), "n_eigenvectors",
-         "an integer ≥ 2", o.n_eigenvectors)
+    need(
+        o.n_eigenvectors is None or integer(o.n_eigenvectors, 2),
+        "n_eigenvectors",
+        "an integer ≥ 2",
+        o.n_eigenvectors,
+    )
     if o.method == "kway" and o.n_eigenvectors is not None and o.n_regions is not None:
-        need(o.n_eigenvectors >= o.n_regions, "n_eigenvectors",
-             f"≥ the number of regions ({o.n_regions}) with method kway", o.n_eigenvectors)
-    need(o.memory_budget is None or integer(o.memory_budget, 1), "memory_budget",
-         "a number of bytes ≥ 1", o.memory_budget)
+        need(
+            o.n_eigenvectors >= o.n_regions,
+            "n_eigenvectors",
+            f"≥ the number of regions ({o.n_regions}) with method kway",
+            o.n_eigenvectors,
+        )
+    need(
+        o.memory_budget is None or integer(o.memory_budget, 1),
+        "memory_budget",
+        "a number of bytes ≥ 1",
+        o.memory_budget,
+    )
     choice("mode", MODES)
     choice("small_objects", SMALL_OBJECTS)
     choice("foreground", FOREGROUNDS)
     for name in ("object_diameter", "pixel_size"):
         v = getattr(o, name)
         need(v is None or (number(v) and np.isfinite(v) and v > 0), name, "> 0", v)
-    need(isinstance(o.exclude_border, (bool, np.bool_)), "exclude_border", "True or False",
-         o.exclude_border)
+    need(
+        isinstance(o.exclude_border, (bool, np.bool_)),
+        "exclude_border",
+        "True or False",
+        o.exclude_border,
+    )
     if o.mode != "objects":
-        for name, default in (("object_diameter", None), ("pixel_size", None),
-                              ("exclude_border", False), ("small_objects", "drop"),
-                              ("foreground", "ncut")):
-            need(getattr(o, name) == default, name, "used with mode objects only",
-                 getattr(o, name))
+        for name, default in (
+            ("object_diameter", None),
+            ("pixel_size", None),
+            ("exclude_border", False),
+            ("small_objects", "drop"),
+            ("foreground", "ncut"),
+        ):
+            need(getattr(o, name) == default, name, "used with mode objects only", getattr(o, name))
     else:
-        need(not o.eigenvectors, "eigenvectors", "used with mode regions only (objects "
-             "mode keeps no whole-image eigenvectors)", o.eigenvectors)
-        need(o.pixel_size is None or o.object_diameter is not None, "pixel_size",
-             "given together with object_diameter (in micrometres)", o.pixel_size)
-    need(o.channel is None or (len(o.channel) > 0 and all(integer(c, 0) for c in o.channel)),
-         "channel", "indices ≥ 0", o.channel)
-    need(o.plane is None or o.plane == "max" or integer(o.plane, 0), "plane",
-         "an index ≥ 0 or 'max'", o.plane)
+        need(
+            not o.eigenvectors,
+            "eigenvectors",
+            "used with mode regions only (objects mode keeps no whole-image eigenvectors)",
+            o.eigenvectors,
+        )
+        need(
+            o.pixel_size is None or o.object_diameter is not None,
+            "pixel_size",
+            "given together with object_diameter (in micrometres)",
+            o.pixel_size,
+        )
+    need(
+        o.channel is None or (len(o.channel) > 0 and all(integer(c, 0) for c in o.channel)),
+        "channel",
+        "indices ≥ 0",
+        o.channel,
+    )
+    need(
+        o.plane is None or o.plane == "max" or integer(o.plane, 0),
+        "plane",
+        "an index ≥ 0 or 'max'",
+        o.plane,
+    )
     need(integer(o.max_pixels, 1), "max_pixels", "an integer ≥ 1", o.max_pixels)
     choice("label_format", LABEL_FORMATS)
-    need(o.fill is None or (number(o.fill) and 0 <= o.fill <= 1), "fill",
-         "an opacity in [0, 1]", o.fill)
+    need(
+        o.fill is None or (number(o.fill) and 0 <= o.fill <= 1),
+        "fill",
+        "an opacity in [0, 1]",
+        o.fill,
+    )
 
 
 def input_sha256(path: str | os.PathLike[str]) -> str:
@@ -343,8 +399,11 @@ def options_fingerprint(options: SegmentOptions) -> str:
     >>> options_fingerprint(SegmentOptions()) == options_fingerprint(SegmentOptions(seed=1))
     False
     """
-    payload = {"imgcut": imgcut.__version__, "record_format": _RECORD_FORMAT,
-               "options": options.to_dict()}
+    payload = {
+        "imgcut": imgcut.__version__,
+        "record_format": _RECORD_FORMAT,
+        "options": options.to_dict(),
+    }
     text = json.dumps(payload, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
@@ -497,8 +556,9 @@ def compute(
     start = time.perf_counter()
 
     tell("read")
-    loaded = read_image(source, channel=options.channel, plane=options.plane,
-                        max_pixels=options.max_pixels)
+    loaded = read_image(
+        source, channel=options.channel, plane=options.plane, max_pixels=options.max_pixels
+    )
     sha = input_sha256(source)
     image = loaded.pixels
     h, w = image.shape[:2]
@@ -519,8 +579,11 @@ def compute(
             seg = _segment(image, options)
         except (ValueError, MemoryError) as exc:
             text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise type(exc)(f"{source}: {text}") if _plain_ctor(exc) else ValueError(
-                f"{source}: {text}") from exc
+            raise (
+                type(exc)(f"{source}: {text}")
+                if _plain_ctor(exc)
+                else ValueError(f"{source}: {text}")
+            ) from exc
     for w_ in seen:
         line = f"{w_.category.__name__}: {str(w_.message).strip().splitlines()[0]}"
         if line not in caught:
@@ -531,9 +594,14 @@ def compute(
     tell("render")
     eigvecs = getattr(seg, "eigenvectors", None) if options.eigenvectors else None
     files = render_outputs(
-        source.stem, image, labels,
-        eigenvectors=eigvecs, eigenvalues=getattr(seg, "eigenvalues", None),
-        label_format=options.label_format, fill=options.fill, masks=options.masks,
+        source.stem,
+        image,
+        labels,
+        eigenvectors=eigvecs,
+        eigenvalues=getattr(seg, "eigenvalues", None),
+        label_format=options.label_format,
+        fill=options.fill,
+        masks=options.masks,
         eigenvector_grid=options.eigenvectors,
     )
     t_render = time.perf_counter()
@@ -570,9 +638,17 @@ def compute(
         "environment": _environment(),
     }
     return ComputedImage(
-        source=source, stem=source.stem, options=options, files=files, record=record,
-        regions=regions, objects=objects, shape=tuple(image.shape),
-        seconds=t_render - start, warnings=caught, labels=labels if keep_labels else None,
+        source=source,
+        stem=source.stem,
+        options=options,
+        files=files,
+        record=record,
+        regions=regions,
+        objects=objects,
+        shape=tuple(image.shape),
+        seconds=t_render - start,
+        warnings=caught,
+        labels=labels if keep_labels else None,
     )
 
 
@@ -588,8 +664,12 @@ def _plain_ctor(exc: BaseException) -> bool:
 def _environment() -> dict[str, str]:
     import scipy
 
-    return {"python": platform.python_version(), "numpy": np.__version__,
-            "scipy": scipy.__version__, "platform": platform.platform(terse=True)}
+    return {
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "platform": platform.platform(terse=True),
+    }
 
 
 def output_paths(
@@ -609,8 +689,12 @@ def output_paths(
     options = options or SegmentOptions()
     source = Path(path)
     folder = Path(out_dir) if out_dir is not None else source.parent
-    names = output_names(source.stem, label_format=options.label_format,
-                         masks=options.masks, eigenvectors=options.eigenvectors)
+    names = output_names(
+        source.stem,
+        label_format=options.label_format,
+        masks=options.masks,
+        eigenvectors=options.eigenvectors,
+    )
     return {kind: folder / name for kind, name in names.items()}
 
 
@@ -703,8 +787,9 @@ def write(
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise OutputFolderError(f"{folder}: output folder cannot be made "
-                                f"({exc.strerror or type(exc).__name__})") from exc
+        raise OutputFolderError(
+            f"{folder}: output folder cannot be made ({exc.strerror or type(exc).__name__})"
+        ) from exc
     for p in paths.values():  # leftovers of an interrupted earlier run
         for stale in stale_partials(p):
             with contextlib.suppress(OSError):
@@ -725,8 +810,9 @@ def write(
     record = dict(computed.record)
     timings = dict(record.get("timings", {}))
     timings["write"] = time.perf_counter() - start
-    timings["total"] = sum(v for k, v in timings.items() if k in ("read", "segment", "render",
-                                                                   "write"))
+    timings["total"] = sum(
+        v for k, v in timings.items() if k in ("read", "segment", "render", "write")
+    )
     record["timings"] = timings
     record["outputs"] = {kind: p.relative_to(folder).as_posix() for kind, p in paths.items()}
     if options.masks:
@@ -736,17 +822,28 @@ def write(
     if extra:
         record["run"] = dict(extra)
     written.append(atomic_write(paths["record"], record_to_json(record), overwrite=True))
-    seg_timings = record.get("segmentation", {}).get("timings") if isinstance(
-        record.get("segmentation"), dict) else None
+    seg_timings = (
+        record.get("segmentation", {}).get("timings")
+        if isinstance(record.get("segmentation"), dict)
+        else None
+    )
     report_timings = dict(timings)
     if seg_timings:
         report_timings["segment_stages"] = seg_timings
     return RunReport(
-        source=computed.source, out_dir=folder, outputs=paths, files=written,
-        regions=computed.regions, objects=computed.objects, shape=computed.shape,
-        seconds=timings["total"], timings=report_timings,
-        input_sha256=record["input"]["sha256"], fingerprint=record["options_fingerprint"],
-        warnings=list(computed.warnings), record=record,
+        source=computed.source,
+        out_dir=folder,
+        outputs=paths,
+        files=written,
+        regions=computed.regions,
+        objects=computed.objects,
+        shape=computed.shape,
+        seconds=timings["total"],
+        timings=report_timings,
+        input_sha256=record["input"]["sha256"],
+        fingerprint=record["options_fingerprint"],
+        warnings=list(computed.warnings),
+        record=record,
     )
 
 

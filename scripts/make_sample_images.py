@@ -143,8 +143,14 @@ def _tiff_bytes(image: np.ndarray) -> bytes:
     import tifffile
 
     buf = io.BytesIO()
-    tifffile.imwrite(buf, image, photometric="minisblack", compression="zlib",
-                     metadata=None, software="imgcut scripts/make_sample_images.py")
+    tifffile.imwrite(
+        buf,
+        image,
+        photometric="minisblack",
+        compression="zlib",
+        metadata=None,
+        software="imgcut scripts/make_sample_images.py",
+    )
     return buf.getvalue()
 
 
@@ -159,13 +165,19 @@ def sample_files(seed: int = SEED) -> dict[str, bytes]:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", type=Path, default=OUT, help="folder to write (sample_images/)")
-    parser.add_argument("--check", action="store_true",
-                        help="verify that the files in --out equal freshly generated ones")
+    parser.add_argument(
+        "--check",
+        action="store_true",
+        help="verify that the files in --out equal freshly generated ones",
+    )
     args = parser.parse_args(argv)
     files = sample_files()
     if args.check:
-        stale = [n for n, d in files.items() if not (args.out / n).is_file()
-                 or (args.out / n).read_bytes() != d]
+        stale = [
+            n
+            for n, d in files.items()
+            if not (args.out / n).is_file() or (args.out / n).read_bytes() != d
+        ]
         for name in stale:
             print(f"{args.out / name}: differs from the generator output", file=sys.stderr)
         return 1 if stale else 0

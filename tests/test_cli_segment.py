@@ -74,8 +74,7 @@ def test_default_run_writes_the_four_files_and_a_summary(work):
     result = run(work / "halves.png", "--out", work / "out", *FAST)
     assert result.exit_code == 0, result.stderr
     names = sorted(p.name for p in (work / "out").iterdir())
-    assert names == ["halves.json", "halves.labels.png", "halves.overlay.png",
-                     "halves.regions.csv"]
+    assert names == ["halves.json", "halves.labels.png", "halves.overlay.png", "halves.regions.csv"]
     assert "halves.png: 2 regions (10×12 pixels)" in result.stdout
     assert str(work / "out" / "halves.overlay.png") in result.stdout
     labels = np.asarray(Image.open(work / "out" / "halves.labels.png"))
@@ -101,13 +100,25 @@ def test_json_prints_the_record_and_quiet_prints_nothing(work):
 
 
 def test_optional_outputs(work):
-    result = run(work / "halves.png", "-o", work / "o", "--masks", "--eigenvectors",
-                 "--fill", "0.4", "--label-format", "tiff", *FAST)
+    result = run(
+        work / "halves.png",
+        "-o",
+        work / "o",
+        "--masks",
+        "--eigenvectors",
+        "--fill",
+        "0.4",
+        "--label-format",
+        "tiff",
+        *FAST,
+    )
     assert result.exit_code == 0, result.stderr
     out = work / "o"
     assert tifffile.imread(out / "halves.labels.tif").max() == 2
     assert sorted(p.name for p in (out / "halves.masks").iterdir()) == [
-        "region-0001.png", "region-0002.png"]
+        "region-0001.png",
+        "region-0002.png",
+    ]
     assert Image.open(out / "halves.eigenvectors.png").format == "PNG"
     rec = json.loads((out / "halves.json").read_text())
     assert rec["options"]["fill"] == 0.4 and rec["options"]["masks"] is True
@@ -122,8 +133,7 @@ def test_channel_and_plane_select_from_a_stack(work):
     rec = json.loads((work / "o" / "stack.json").read_text())
     assert rec["input"]["plane"] == 1 and rec["input"]["channels"] == [2]
     assert rec["result"]["regions"] == 2
-    result = run(work / "stack.tif", "-o", work / "p", "--plane", "max", "--channel", "0,2",
-                 *FAST)
+    result = run(work / "stack.tif", "-o", work / "p", "--plane", "max", "--channel", "0,2", *FAST)
     assert result.exit_code == 0, result.stderr
 
 
@@ -145,8 +155,7 @@ def test_objects_mode_labels_objects_on_background(work):
 def test_overwrite_replaces_existing_outputs(work):
     assert run(work / "halves.png", "-o", work / "o", *FAST).exit_code == 0
     before = snapshot(work / "o")
-    result = run(work / "halves.png", "-o", work / "o", "-k", "1", "--radius", "2",
-                 "--overwrite")
+    result = run(work / "halves.png", "-o", work / "o", "-k", "1", "--radius", "2", "--overwrite")
     assert result.exit_code == 0, result.stderr
     after = snapshot(work / "o")
     assert after.keys() == before.keys() and after != before
@@ -163,8 +172,7 @@ def _write_bad(work: Path, kind: str) -> Path:
         path.write_text("these are notes, not pixels\n" * 10)
     elif kind == "truncated":
         path = work / "cut.png"
-        Image.fromarray(np.random.default_rng(1).integers(0, 255, (64, 64, 3), np.uint8)).save(
-            path)
+        Image.fromarray(np.random.default_rng(1).integers(0, 255, (64, 64, 3), np.uint8)).save(path)
         path.write_bytes(path.read_bytes()[:500])
     elif kind == "empty":
         path = work / "empty.tif"
@@ -184,8 +192,9 @@ def _write_bad(work: Path, kind: str) -> Path:
         tifffile.imwrite(path, data)
     elif kind == "stack":
         path = work / "zstack.tif"
-        tifffile.imwrite(path, np.zeros((4, 6, 8), np.uint16), photometric="minisblack",
-                         metadata={"axes": "ZYX"})
+        tifffile.imwrite(
+            path, np.zeros((4, 6, 8), np.uint16), photometric="minisblack", metadata={"axes": "ZYX"}
+        )
     else:  # pragma: no cover
         raise AssertionError(kind)
     return path
@@ -214,8 +223,13 @@ def test_data_errors_exit_1(work, kind, fragments):
 def test_image_over_max_pixels_exit_1(work):
     before = snapshot(work)
     result = run(work / "halves.png", "--max-pixels", "100", "-o", work / "out")
-    assert_one_line_error(result, 1, "halves.png: image is 10×12 = 120 pixels",
-                          "over the limit of 100", "--max-pixels")
+    assert_one_line_error(
+        result,
+        1,
+        "halves.png: image is 10×12 = 120 pixels",
+        "over the limit of 100",
+        "--max-pixels",
+    )
     assert snapshot(work) == before and not (work / "out").exists()
 
 
@@ -223,24 +237,37 @@ def test_missing_file_and_folder_exit_2(work):
     before = snapshot(work)
     assert_one_line_error(run(work / "nope.png", "-o", work / "out"), 2, "nope.png: no such file")
     (work / "folder.png").mkdir()
-    assert_one_line_error(run(work / "folder.png", "-o", work / "out"), 2,
-                          "folder.png: is a folder, not an image file")
+    assert_one_line_error(
+        run(work / "folder.png", "-o", work / "out"),
+        2,
+        "folder.png: is a folder, not an image file",
+    )
     assert snapshot(work) == before and not (work / "out").exists()
 
 
 def test_unwritable_output_folder_exit_2(work):
     (work / "taken").write_text("a file where the output folder should be")
     before = snapshot(work)
-    assert_one_line_error(run(work / "halves.png", "-o", work / "taken", *FAST), 2,
-                          "taken: output folder is not a folder")
-    assert_one_line_error(run(work / "halves.png", "-o", work / "taken" / "sub", *FAST), 2,
-                          "output folder cannot be made", "taken is a file")
+    assert_one_line_error(
+        run(work / "halves.png", "-o", work / "taken", *FAST),
+        2,
+        "taken: output folder is not a folder",
+    )
+    assert_one_line_error(
+        run(work / "halves.png", "-o", work / "taken" / "sub", *FAST),
+        2,
+        "output folder cannot be made",
+        "taken is a file",
+    )
     assert snapshot(work) == before
 
 
-@pytest.mark.skipif(sys.platform == "win32" or not hasattr(__import__("os"), "geteuid")
-                    or __import__("os").geteuid() == 0,
-                    reason="permission bits do not stop root (or apply on Windows)")
+@pytest.mark.skipif(
+    sys.platform == "win32"
+    or not hasattr(__import__("os"), "geteuid")
+    or __import__("os").geteuid() == 0,
+    reason="permission bits do not stop root (or apply on Windows)",
+)
 def test_read_only_output_folder_exit_2(work):  # pragma: no cover - CI runs as root
     ro = work / "ro"
     ro.mkdir()
@@ -261,8 +288,11 @@ def test_existing_outputs_are_refused_without_overwrite(work):
     (work / "o2" / "halves.masks").mkdir(parents=True)
     (work / "o2" / "halves.masks" / "region-0001.png").write_bytes(b"mine")
     before = snapshot(work)
-    assert_one_line_error(run(work / "halves.png", "-o", work / "o2", "--masks", *FAST), 2,
-                          "region-0001.png: already exists")
+    assert_one_line_error(
+        run(work / "halves.png", "-o", work / "o2", "--masks", *FAST),
+        2,
+        "region-0001.png: already exists",
+    )
     assert snapshot(work) == before
 
 
@@ -289,10 +319,14 @@ def test_existing_outputs_are_refused_without_overwrite(work):
         (["--memory-budget", "0"], ["--memory-budget must be > 0 (GiB)"]),
         (["--mode", "cells"], ["--mode must be one of regions, objects"]),
         (["--object-diameter", "12"], ["--object-diameter must be used with mode objects"]),
-        (["--mode", "objects", "--eigenvectors"], ["--eigenvectors must be used with mode "
-                                                   "regions only"]),
-        (["--mode", "objects", "--small-objects", "keep"], ["--small-objects must be one of "
-                                                            "drop, merge"]),
+        (
+            ["--mode", "objects", "--eigenvectors"],
+            ["--eigenvectors must be used with mode regions only"],
+        ),
+        (
+            ["--mode", "objects", "--small-objects", "keep"],
+            ["--small-objects must be one of drop, merge"],
+        ),
     ],
 )
 def test_nonsense_options_exit_2(work, args, fragments):
@@ -329,8 +363,7 @@ def test_unexpected_library_failure_is_one_line(work, monkeypatch):
 
     monkeypatch.setattr(runner, "_segment", broken)
     result = run(work / "halves.png", "-o", work / "out", *FAST)
-    assert_one_line_error(result, 1, "halves.png: RuntimeError: eigensolver gave up",
-                          "--debug")
+    assert_one_line_error(result, 1, "halves.png: RuntimeError: eigensolver gave up", "--debug")
     assert not (work / "out").exists()
 
 
@@ -357,7 +390,9 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     # the README command plus the optional pictures; defaults otherwise
     proc = subprocess.Popen(
         [exe, "segment", str(sample), "--out", str(tmp_path), "--masks", "--eigenvectors"],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     try:
         # meanwhile, the library on the same pixels with the same (default) options
@@ -368,10 +403,16 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
         if proc.poll() is None:
             proc.kill()
     assert proc.returncode == 0, stderr
-    out = {k: tmp_path / v for k, v in {
-        "labels": "scene.labels.png", "overlay": "scene.overlay.png",
-        "regions": "scene.regions.csv", "record": "scene.json",
-        "eigenvectors": "scene.eigenvectors.png"}.items()}
+    out = {
+        k: tmp_path / v
+        for k, v in {
+            "labels": "scene.labels.png",
+            "overlay": "scene.overlay.png",
+            "regions": "scene.regions.csv",
+            "record": "scene.json",
+            "eigenvectors": "scene.eigenvectors.png",
+        }.items()
+    }
     for path in out.values():
         assert path.is_file(), path
 
@@ -385,7 +426,8 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     assert [int(r["label"]) for r in rows] == list(range(1, direct.n_regions + 1))
     record = json.loads(out["record"].read_text())
     assert record["segmentation"]["eigenvalues"] == pytest.approx(
-        [float(v) for v in direct.eigenvalues], rel=1e-6, abs=1e-12)
+        [float(v) for v in direct.eigenvalues], rel=1e-6, abs=1e-12
+    )
     assert record["input"]["sha256"] == hashlib.sha256(sample.read_bytes()).hexdigest()
     masks = sorted((tmp_path / "scene.masks").iterdir())
     assert len(masks) == direct.n_regions

@@ -180,11 +180,21 @@ def test_region_table_single_channel_and_csv_round_trip():
 
 
 def test_record_json_is_strict_and_plain():
-    rec = {"values": np.array([0.0, 1e-5], np.float32), "n": np.int64(3), "bad": np.inf,
-           "ok": np.bool_(True), "nested": {"t": (1, 2)}}
+    rec = {
+        "values": np.array([0.0, 1e-5], np.float32),
+        "n": np.int64(3),
+        "bad": np.inf,
+        "ok": np.bool_(True),
+        "nested": {"t": (1, 2)},
+    }
     back = json.loads(record_to_json(rec))  # strict parser: no NaN/Infinity tokens allowed
-    assert back == {"values": [0.0, pytest.approx(1e-5)], "n": 3, "bad": None, "ok": True,
-                    "nested": {"t": [1, 2]}}
+    assert back == {
+        "values": [0.0, pytest.approx(1e-5)],
+        "n": 3,
+        "bad": None,
+        "ok": True,
+        "nested": {"t": [1, 2]},
+    }
 
 
 def test_masks_decode_to_each_region():
@@ -223,12 +233,24 @@ def test_eigenvector_grid_leaves_pyplot_alone():
 
 def test_output_names_and_render_outputs():
     names = output_names("cells", label_format="tiff", masks=True, eigenvectors=True)
-    assert names == {"labels": "cells.labels.tif", "overlay": "cells.overlay.png",
-                     "regions": "cells.regions.csv", "record": "cells.json",
-                     "masks": "cells.masks", "eigenvectors": "cells.eigenvectors.png"}
-    files = render_outputs("cells", np.zeros((12, 16)), _blocks(), label_format="tiff",
-                           masks=True, eigenvector_grid=True,
-                           eigenvectors=np.ones((12, 16, 2)), eigenvalues=np.zeros(2))
+    assert names == {
+        "labels": "cells.labels.tif",
+        "overlay": "cells.overlay.png",
+        "regions": "cells.regions.csv",
+        "record": "cells.json",
+        "masks": "cells.masks",
+        "eigenvectors": "cells.eigenvectors.png",
+    }
+    files = render_outputs(
+        "cells",
+        np.zeros((12, 16)),
+        _blocks(),
+        label_format="tiff",
+        masks=True,
+        eigenvector_grid=True,
+        eigenvectors=np.ones((12, 16, 2)),
+        eigenvalues=np.zeros(2),
+    )
     assert "cells.masks/region-0004.png" in files and "cells.json" not in files
     with pytest.raises(ValueError, match="needs the eigenvectors"):
         render_outputs("x", np.zeros((12, 16)), _blocks(), eigenvector_grid=True)
@@ -253,8 +275,7 @@ def test_write_outputs_writes_the_record_last(tmp_path, monkeypatch):
         return real(path, data, **kw)
 
     monkeypatch.setattr(export, "atomic_write", spy)
-    paths = write_outputs(tmp_path, "x", np.zeros((12, 16)), _blocks(), record={"a": 1},
-                          masks=True)
+    paths = write_outputs(tmp_path, "x", np.zeros((12, 16)), _blocks(), record={"a": 1}, masks=True)
     assert order[-1] == "x.json" and len(order) == 4 + 4
     assert paths["masks"].is_dir() and json.loads(paths["record"].read_text()) == {"a": 1}
 

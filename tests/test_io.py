@@ -237,8 +237,12 @@ def _png_chunk(kind: bytes, body: bytes) -> bytes:
 def test_forged_png_header_is_refused_before_decoding(tmp_path):
     width = height = 60_000  # 3.6 gigapixels claimed by a 100-byte file
     ihdr = struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0)
-    data = (b"\x89PNG\r\n\x1a\n" + _png_chunk(b"IHDR", ihdr)
-            + _png_chunk(b"IDAT", zlib.compress(b"\x00" * 64)) + _png_chunk(b"IEND", b""))
+    data = (
+        b"\x89PNG\r\n\x1a\n"
+        + _png_chunk(b"IHDR", ihdr)
+        + _png_chunk(b"IDAT", zlib.compress(b"\x00" * 64))
+        + _png_chunk(b"IEND", b"")
+    )
     path = tmp_path / "bomb.png"
     path.write_bytes(data)
     old = Image.MAX_IMAGE_PIXELS

@@ -111,8 +111,9 @@ def test_options_round_trip_and_library_kwargs():
     assert set(kwargs) <= set(params)
     from imgcut.objects import segment_objects
 
-    objects = SegmentOptions(mode="objects", object_diameter=12.0, pixel_size=0.5, radius=2.0,
-                             exclude_border=True).segment_kwargs()
+    objects = SegmentOptions(
+        mode="objects", object_diameter=12.0, pixel_size=0.5, radius=2.0, exclude_border=True
+    ).segment_kwargs()
     assert set(objects) <= set(inspect.signature(segment_objects).parameters)
     assert objects["radius"] == 2.0 and "n_regions" not in objects and "max_ncut" not in objects
     with pytest.raises(OptionError, match="not an option"):
@@ -123,13 +124,31 @@ def test_fingerprint_is_stable_and_sensitive_to_every_field():
     base = SegmentOptions()
     assert options_fingerprint(base) == options_fingerprint(SegmentOptions())
     changed = {
-        "n_regions": 3, "max_ncut": 0.5, "method": "kway", "kway_method": "kmeans",
-        "radius": 4.0, "cue": "contour", "mode": "objects", "sigma_feature": 0.2,
+        "n_regions": 3,
+        "max_ncut": 0.5,
+        "method": "kway",
+        "kway_method": "kmeans",
+        "radius": 4.0,
+        "cue": "contour",
+        "mode": "objects",
+        "sigma_feature": 0.2,
         "sigma_distance": 3.0,
-        "sigma_edge": 0.1, "min_area": 10, "connected": False, "solver": "arpack",
-        "tol": 1e-6, "maxiter": 50, "seed": 1, "n_eigenvectors": 8, "memory_budget": 10**9,
-        "channel": (0,), "plane": 1, "max_pixels": 10, "label_format": "tiff", "fill": 0.5,
-        "masks": True, "eigenvectors": True,
+        "sigma_edge": 0.1,
+        "min_area": 10,
+        "connected": False,
+        "solver": "arpack",
+        "tol": 1e-6,
+        "maxiter": 50,
+        "seed": 1,
+        "n_eigenvectors": 8,
+        "memory_budget": 10**9,
+        "channel": (0,),
+        "plane": 1,
+        "max_pixels": 10,
+        "label_format": "tiff",
+        "fill": 0.5,
+        "masks": True,
+        "eigenvectors": True,
     }
     seen = {options_fingerprint(base)}
     for name, value in changed.items():
@@ -169,29 +188,33 @@ def test_compute_writes_nothing_and_agrees_with_the_library(halves):
     labels_png = computed.files["halves.labels.png"]
     np.testing.assert_array_equal(np.asarray(Image.open(io.BytesIO(labels_png))), direct.labels)
     assert computed.record["segmentation"]["eigenvalues"] == pytest.approx(
-        [float(v) for v in direct.eigenvalues])
+        [float(v) for v in direct.eigenvalues]
+    )
     restored = pickle.loads(pickle.dumps(computed))  # travels back from a worker
     assert restored.files == computed.files and restored.record == computed.record
 
 
 def test_process_image_writes_every_output_and_a_complete_record(halves, tmp_path):
-    opts = SegmentOptions(n_regions=2, radius=2, masks=True, eigenvectors=True,
-                          label_format="tiff")
+    opts = SegmentOptions(n_regions=2, radius=2, masks=True, eigenvectors=True, label_format="tiff")
     report = process_image(halves, tmp_path / "out" / "deeper", opts)
     assert report.regions == 2 and report.shape == (10, 12)
     for kind in ("labels", "overlay", "regions", "record", "eigenvectors"):
         assert report.outputs[kind].is_file(), kind
     assert report.files[-1] == report.outputs["record"]  # the record is written last
     assert sorted(p.name for p in report.outputs["masks"].iterdir()) == [
-        "region-0001.png", "region-0002.png"]
+        "region-0001.png",
+        "region-0002.png",
+    ]
     rec = json.loads(report.outputs["record"].read_text())
     assert rec["input"]["sha256"] == input_sha256(halves)
     assert rec["options_fingerprint"] == options_fingerprint(opts)
     assert rec["options"]["label_format"] == "tiff"
     assert set(rec["timings"]) >= {"read", "segment", "render", "write", "total"}
     assert rec["outputs"]["labels"] == "halves.labels.tif"
-    assert rec["outputs"]["mask_files"] == ["halves.masks/region-0001.png",
-                                            "halves.masks/region-0002.png"]
+    assert rec["outputs"]["mask_files"] == [
+        "halves.masks/region-0001.png",
+        "halves.masks/region-0002.png",
+    ]
     assert rec["result"]["regions"] == 2 and rec["result"]["image_pixels"] == 120
 
 
@@ -226,11 +249,14 @@ def test_overwrite_replaces_and_drops_stale_masks(halves, tmp_path):
     assert first.regions == 3
     Image.fromarray(_two_halves()).save(src)
     (out / f".img.labels.png.abc{PARTIAL_SUFFIX}").write_bytes(b"left by a killed run")
-    second = process_image(src, out, SegmentOptions(n_regions=2, radius=2, masks=True),
-                           overwrite=True)
+    second = process_image(
+        src, out, SegmentOptions(n_regions=2, radius=2, masks=True), overwrite=True
+    )
     assert second.regions == 2
     assert sorted(p.name for p in (out / "img.masks").iterdir()) == [
-        "region-0001.png", "region-0002.png"]
+        "region-0001.png",
+        "region-0002.png",
+    ]
     assert not any(p.name.endswith(PARTIAL_SUFFIX) for p in out.iterdir())
 
 
@@ -265,14 +291,16 @@ def test_warnings_are_recorded(halves, tmp_path, monkeypatch):
     from imgcut._errors import EigenConvergenceWarning
 
     def warn_then_segment(image, options):
-        warnings.warn("residual 1e-3 above tol 1e-5; raise maxiter", EigenConvergenceWarning,
-                      stacklevel=1)
+        warnings.warn(
+            "residual 1e-3 above tol 1e-5; raise maxiter", EigenConvergenceWarning, stacklevel=1
+        )
         return segment(image, **options.segment_kwargs())
 
     monkeypatch.setattr(runner, "_segment", warn_then_segment)
     report = process_image(halves, tmp_path / "out", FAST)
-    assert report.warnings == ["EigenConvergenceWarning: residual 1e-3 above tol 1e-5; "
-                               "raise maxiter"]
+    assert report.warnings == [
+        "EigenConvergenceWarning: residual 1e-3 above tol 1e-5; raise maxiter"
+    ]
     assert json.loads(report.outputs["record"].read_text())["warnings"] == report.warnings
 
 
