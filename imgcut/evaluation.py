@@ -7,29 +7,63 @@ options, shows progress and prints. Report files (CSV, Markdown, PNG plots) are 
 
 from __future__ import annotations
 
-from collections.abc import Iterable
-from dataclasses import dataclass
+import os
+import time
+from collections.abc import Callable, Iterable, Sequence
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
 
 import numpy as np
 from skimage.morphology import thin
 
-from imgcut.groundtruth import GroundTruth
+from imgcut.groundtruth import Dataset, DatasetItem, GroundTruth, find_dataset, read_ground_truth
 from imgcut.metrics import (
     DEFAULT_MAX_DIST,
     BoundaryCounts,
+    BoundarySummary,
+    InstanceScores,
     RegionScores,
+    RegionSummary,
     boundary_counts,
+    instance_scores,
     label_boundaries,
     region_scores,
+    summarize_boundaries,
+    summarize_regions,
 )
 
 __all__ = [
+    "DEFAULT_SWEEP",
+    "DEFAULT_IOU_THRESHOLDS",
+    "MODES",
+    "EvaluationResult",
     "HumanAgreement",
+    "ImageResult",
     "ImageScore",
+    "InstanceSummary",
+    "evaluate_dataset",
     "human_agreement",
     "human_boundaries",
     "score_image",
+    "segment_objects_labels",
+    "segment_sweep",
+    "summarize_instances",
+    "write_report",
 ]
+
+#: Region counts swept by default (levels of the recursive-cut hierarchy).
+DEFAULT_SWEEP = (2, 3, 4, 6, 8, 12, 16, 24, 32)
+#: IoU thresholds of the instance measures by default.
+DEFAULT_IOU_THRESHOLDS = (0.5, 0.6, 0.7, 0.8, 0.9)
+#: Evaluation modes: region/boundary measures over a sweep, or instance measures.
+MODES = ("auto", "regions", "objects")
+
+#: A region segmenter: (image, region counts) -> one label image per count.
+SweepSegmenter = Callable[[np.ndarray, Sequence[int]], Sequence[np.ndarray]]
+#: An object segmenter: image -> instance label image (0 = background).
+ObjectSegmenter = Callable[[np.ndarray], np.ndarray]
 
 
 @dataclass(frozen=True)
@@ -216,3 +250,367 @@ def human_agreement(
         n_images=len(pri),
         n_comparisons=n_comp,
     )
+
+
+# ---------------------------------------------------------------------------- segmenters
+
+
+def segment_sweep(image: np.ndarray, counts: Sequence[int], **options: Any) -> list[np.ndarray]:
+    """Segment once and read the label images at several region counts.
+
+    With ``method="recursive"`` (the default of :func:`imgcut.segment`) one run with
+    ``n_regions = max(counts)`` gives the whole hierarchy, and each count is read with
+    ``Segmentation.labels_at`` (clamped to the levels the run reached). With
+    ``method="kway"`` the image is segmented once per count.
+
+    Parameters
+    ----------
+    image : ndarray
+        Image as read.
+    counts : sequence of int
+        Region counts (>= 1).
+    **options
+        Passed to :func:`imgcut.segment`.
+
+    Returns
+    -------
+    list of ndarray of int32
+        One label image per count.
+    """
+    from imgcut import segment
+
+    if options.get("method", "recursive") == "kway":
+        return [segment(image, n_regions=int(k), **options).labels for k in counts]
+    seg = segment(image, n_regions=int(max(counts)), **options)
+    top = int(seg.levels)
+    return [seg.labels_at(min(int(k), top)) for k in counts]
+
+
+def segment_objects_labels(image: np.ndarray, **options: Any) -> np.ndarray:
+    """Object labels from :func:`imgcut.objects.segment_objects` (the objects-mode hook).
+
+    Replace it by passing ``object_segmenter=`` to :func:`evaluate_dataset`.
+    """
+    from imgcut.objects import segment_objects
+
+    return segment_objects(image, **options).labels
+
+
+# ---------------------------------------------------------------------------- one image
+
+
+@dataclass
+class ImageResult:
+    """Scores of one dataset image.
+
+    Attributes
+    ----------
+    name : str
+    counts : tuple of int
+        Requested region counts of the sweep (regions mode; empty in objects mode).
+    n_regions : tuple of int
+        Regions actually present at each sweep entry (objects found, in objects mode).
+    scores : list of ImageScore
+        One per sweep entry (regions mode).
+    instance : InstanceScores or None
+        Objects mode.
+    labels : list of ndarray
+        The label images scored (one per sweep entry, or one in objects mode).
+    seconds : float
+        Segmentation plus scoring time.
+    """
+
+    name: str
+    counts: tuple[int, ...]
+    n_regions: tuple[int, ...]
+    scores: list[ImageScore] = field(default_factory=list)
+    instance: InstanceScores | None = None
+    labels: list[np.ndarray] = field(default_factory=list)
+    seconds: float = 0.0
+
+
+def _read_pixels(path: Path) -> np.ndarray:
+    from imgcut.io import read_image
+
+    return read_image(path).pixels
+
+
+def _evaluate_item(
+    item: DatasetItem,
+    mode: str,
+    counts: tuple[int, ...],
+    segment_options: dict[str, Any],
+    max_dist: float,
+    iou_thresholds: tuple[float, ...],
+    sweep_segmenter: SweepSegmenter | None,
+    object_segmenter: ObjectSegmenter | None,
+) -> ImageResult:
+    t0 = time.perf_counter()
+    image = _read_pixels(item.image)
+    truth = read_ground_truth(item.truth)
+    if truth.shape != image.shape[:2]:
+        raise ValueError(
+            f"{item.truth}: ground truth shape {truth.shape} differs from the image "
+            f"{image.shape[:2]}"
+        )
+    if mode == "objects":
+        fn = object_segmenter or (lambda im: segment_objects_labels(im, **segment_options))
+        labels = np.asarray(fn(image))
+        inst = instance_scores(labels, truth.segmentations[0], thresholds=iou_thresholds)
+        return ImageResult(
+            item.name, (), (inst.n_predicted,), instance=inst, labels=[labels],
+            seconds=time.perf_counter() - t0,
+        )  # fmt: skip
+    fn_sweep = sweep_segmenter or (lambda im, c: segment_sweep(im, c, **segment_options))
+    levels = [np.asarray(lab) for lab in fn_sweep(image, counts)]
+    if len(levels) != len(counts):
+        raise ValueError(f"segmenter returned {len(levels)} label images for {len(counts)} counts")
+    bnd = human_boundaries(truth)
+    scores = [score_image(lab, truth, max_dist=max_dist, boundaries=bnd) for lab in levels]
+    n_reg = tuple(int(np.unique(lab[lab > 0]).size) for lab in levels)
+    return ImageResult(
+        item.name, counts, n_reg, scores=scores, labels=levels, seconds=time.perf_counter() - t0
+    )
+
+
+# ---------------------------------------------------------------------------- datasets
+
+
+@dataclass(frozen=True)
+class InstanceSummary:
+    """Instance measures pooled over a dataset (objects mode), one entry per threshold."""
+
+    thresholds: np.ndarray
+    precision: np.ndarray
+    recall: np.ndarray
+    f1: np.ndarray
+    mean_iou: np.ndarray
+    true_positives: np.ndarray
+    false_positives: np.ndarray
+    false_negatives: np.ndarray
+    n_split: int
+    n_merged: int
+    n_true: int
+    n_predicted: int
+
+
+def summarize_instances(scores: Sequence[InstanceScores]) -> InstanceSummary:
+    """Pool per-image instance counts over a dataset (TP, FP, FN summed per threshold).
+
+    Mean IoU is weighted by each image's matches. Raises ``ValueError`` when empty or
+    when images used different thresholds.
+    """
+    if not scores:
+        raise ValueError("summarize_instances: no images to aggregate")
+    th = scores[0].thresholds
+    if any(not np.array_equal(s.thresholds, th) for s in scores):
+        raise ValueError("summarize_instances: images were scored at different thresholds")
+    tp = np.sum([s.true_positives for s in scores], axis=0)
+    fp = np.sum([s.false_positives for s in scores], axis=0)
+    fn = np.sum([s.false_negatives for s in scores], axis=0)
+    iou_sum = np.sum([np.nan_to_num(s.mean_iou) * s.true_positives for s in scores], axis=0)
+
+    def ratio(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        return np.divide(a, b, out=np.ones(a.shape), where=b > 0)
+
+    return InstanceSummary(
+        thresholds=th,
+        precision=ratio(tp * 1.0, (tp + fp) * 1.0),
+        recall=ratio(tp * 1.0, (tp + fn) * 1.0),
+        f1=ratio(2.0 * tp, (2 * tp + fp + fn) * 1.0),
+        mean_iou=np.divide(iou_sum, tp, out=np.full(tp.shape, np.nan), where=tp > 0),
+        true_positives=tp,
+        false_positives=fp,
+        false_negatives=fn,
+        n_split=int(sum(s.n_split for s in scores)),
+        n_merged=int(sum(s.n_merged for s in scores)),
+        n_true=int(sum(s.n_true for s in scores)),
+        n_predicted=int(sum(s.n_predicted for s in scores)),
+    )
+
+
+@dataclass
+class EvaluationResult:
+    """Everything one dataset evaluation produced.
+
+    Attributes
+    ----------
+    dataset : Dataset
+    mode : {"regions", "objects"}
+    counts : tuple of int
+        The sweep (regions mode).
+    images : list of ImageResult
+        Scored images, in dataset order.
+    failures : list of (str, str)
+        (image name, one-line reason) of images that failed and were skipped.
+    regions : RegionSummary or None
+    boundaries : BoundarySummary or None
+    instances : InstanceSummary or None
+    options : dict
+        Options of the run (for the report).
+    """
+
+    dataset: Dataset
+    mode: str
+    counts: tuple[int, ...]
+    images: list[ImageResult]
+    failures: list[tuple[str, str]]
+    regions: RegionSummary | None = None
+    boundaries: BoundarySummary | None = None
+    instances: InstanceSummary | None = None
+    options: dict[str, Any] = field(default_factory=dict)
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    return f"{type(exc).__name__}: {text}" if not isinstance(exc, ValueError) else text
+
+
+def evaluate_dataset(
+    root: str | os.PathLike[str],
+    *,
+    counts: Sequence[int] = DEFAULT_SWEEP,
+    mode: str = "auto",
+    limit: int | None = None,
+    jobs: int = 1,
+    max_dist: float = DEFAULT_MAX_DIST,
+    iou_thresholds: Sequence[float] = DEFAULT_IOU_THRESHOLDS,
+    segment_options: dict[str, Any] | None = None,
+    sweep_segmenter: SweepSegmenter | None = None,
+    object_segmenter: ObjectSegmenter | None = None,
+    progress: Callable[[str, str | None], None] | None = None,
+) -> EvaluationResult:
+    """Segment every image of a dataset folder and score it against its ground truth.
+
+    Parameters
+    ----------
+    root : str or path-like
+        Dataset folder (layout ``"bsds"`` or ``"masks"``, see
+        :func:`imgcut.groundtruth.find_dataset`).
+    counts : sequence of int, default DEFAULT_SWEEP
+        Region counts swept per image (regions mode); ODS picks one for the dataset,
+        OIS one per image.
+    mode : {"auto", "regions", "objects"}, default "auto"
+        ``"auto"``: regions for ``"bsds"``, objects for ``"masks"``. Objects mode scores
+        instance labels (0 = background) with :func:`imgcut.metrics.instance_scores`.
+    limit : int, optional
+        Score only the first ``limit`` images (sorted by name).
+    jobs : int, default 1
+        Worker processes. Custom segmenters must then be picklable (module-level).
+    max_dist : float, default 0.0075
+        Boundary tolerance as a fraction of the image diagonal.
+    iou_thresholds : sequence of float
+        Objects mode thresholds.
+    segment_options : dict, optional
+        Keyword options of :func:`imgcut.segment` (regions mode) or
+        :func:`imgcut.objects.segment_objects` (objects mode).
+    sweep_segmenter, object_segmenter : callable, optional
+        Replace the default segmenters (:func:`segment_sweep`,
+        :func:`segment_objects_labels`); the hook for other methods or modes.
+    progress : callable, optional
+        Called as ``progress(name, error)`` after each image (``error`` None on success).
+
+    Returns
+    -------
+    EvaluationResult
+        Failed images are listed in ``failures`` and left out of the summaries.
+
+    Raises
+    ------
+    ValueError
+        Bad options or dataset folder (one line; a :class:`GroundTruthError` names the
+        folder); also when every image failed.
+    """
+    if mode not in MODES:
+        raise ValueError(f"mode must be one of {', '.join(MODES)}; got {mode!r}")
+    cts = tuple(int(c) for c in counts)
+    if not cts or min(cts) < 1:
+        raise ValueError(f"counts must be region counts >= 1, got {list(counts)}")
+    if limit is not None and limit < 1:
+        raise ValueError(f"limit must be >= 1, got {limit}")
+    if jobs < 1:
+        raise ValueError(f"jobs must be >= 1, got {jobs}")
+    ths = tuple(float(t) for t in iou_thresholds)
+    dataset = find_dataset(root)
+    run_mode = mode if mode != "auto" else ("regions" if dataset.layout == "bsds" else "objects")
+    items = list(dataset.items[:limit] if limit else dataset.items)
+    opts = dict(segment_options or {})
+    args = (run_mode, cts, opts, max_dist, ths, sweep_segmenter, object_segmenter)
+    results: dict[str, ImageResult] = {}
+    failures: list[tuple[str, str]] = []
+
+    def done(name: str, res: ImageResult | None, err: BaseException | None) -> None:
+        if res is not None:
+            results[name] = res
+        else:
+            failures.append((name, _one_line(err) if err else "failed"))
+        if progress is not None:
+            progress(name, None if res is not None else failures[-1][1])
+
+    if jobs == 1:
+        for item in items:
+            try:
+                res = _evaluate_item(item, *args)
+            except (KeyboardInterrupt, SystemExit):
+                raise
+            except Exception as exc:  # a failing image is reported and skipped
+                done(item.name, None, exc)
+            else:
+                done(item.name, res, None)
+    else:
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            futures = {pool.submit(_evaluate_item, item, *args): item for item in items}
+            for fut in as_completed(futures):
+                item = futures[fut]
+                try:
+                    res = fut.result()
+                except Exception as exc:
+                    done(item.name, None, exc)
+                else:
+                    done(item.name, res, None)
+    ordered = [results[i.name] for i in items if i.name in results]
+    failures.sort()
+    if not ordered:
+        first = failures[0][1] if failures else "no images"
+        raise ValueError(f"{dataset.root}: every image failed (first: {first})")
+    out = EvaluationResult(
+        dataset, run_mode, cts if run_mode == "regions" else (), ordered, failures,
+        options={"max_dist": max_dist, "iou_thresholds": ths, "segment": opts, "limit": limit},
+    )  # fmt: skip
+    if run_mode == "regions":
+        out.regions = summarize_regions([[s.region for s in r.scores] for r in ordered])
+        out.boundaries = summarize_boundaries([[s.boundary for s in r.scores] for r in ordered])
+    else:
+        out.instances = summarize_instances([r.instance for r in ordered if r.instance])
+    return out
+
+
+def write_report(
+    result: EvaluationResult, out_dir: str | os.PathLike[str], *, n_examples: int = 3
+) -> list[Path]:
+    """Write the report of an evaluation into a folder.
+
+    Files: ``per_image.csv`` (one row per image and sweep entry, or per image and IoU
+    threshold), ``summary.csv`` and ``summary.md`` (ODS / OIS / Best table, failures),
+    ``failures.csv`` when images failed, and PNG plots: ``boundary_pr.png`` (dataset
+    precision-recall over the sweep with iso-F contours, ODS and OIS marked),
+    ``covering_hist.png`` (per-image covering at the ODS level; ``f1_hist.png`` in
+    objects mode) and ``overlay_best_*.png`` / ``overlay_worst_*.png`` (segmentation
+    beside up to four human segmentations). Every file is written atomically.
+
+    Parameters
+    ----------
+    result : EvaluationResult
+    out_dir : str or path-like
+        Created if missing; existing report files are replaced.
+    n_examples : int, default 3
+        Best and worst images drawn.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written.
+    """
+    from imgcut._evaluation_report import write_report_files
+
+    return write_report_files(result, Path(out_dir), n_examples=n_examples)

@@ -166,7 +166,9 @@ def read_label_image(path: str | os.PathLike[str]) -> np.ndarray:
         if suffix in (".tif", ".tiff"):
             import tifffile
 
-            arr = np.squeeze(tifffile.imread(p))
+            arr = tifffile.imread(p)
+            while arr.ndim > 2 and arr.shape[0] == 1:  # single-page stacks
+                arr = arr[0]
         else:
             from PIL import Image
 

@@ -1,1 +1,322 @@
-"""Command module placeholder: its owner registers commands on `imgcut.cli._app.app`."""
+"""``imgcut evaluate DATA_DIR --out REPORT_DIR`` and ``imgcut score SEGMENTATION GROUND_TRUTH...``.
+
+A thin layer over :mod:`imgcut.evaluation`: options, progress and messages only. Every
+failure is one line on stderr naming the file and the problem. Exit status: 0 all done;
+1 a data problem (``score``: unreadable or mismatched file; ``evaluate``: at least one
+image failed, the report is still written); 2 usage (bad option, missing path, no
+dataset layout); 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+
+from imgcut.cli._app import app
+
+__all__ = ["evaluate_command", "score_command", "EXIT_DATA", "EXIT_USAGE"]
+
+EXIT_DATA = 1
+EXIT_USAGE = 2
+EXIT_INTERRUPTED = 130
+
+
+def _fail(command: str, message: object, code: int) -> typer.Exit:
+    first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
+    typer.echo(f"imgcut {command}: error: {first}", err=True)
+    return typer.Exit(code)
+
+
+def _parse_ints(text: str, flag: str) -> tuple[int, ...]:
+    try:
+        vals = tuple(int(t) for t in text.replace(" ", "").split(",") if t)
+    except ValueError:
+        raise ValueError(f"{flag} must be comma-separated integers, got {text!r}") from None
+    if not vals or min(vals) < 1:
+        raise ValueError(f"{flag} must list region counts >= 1, got {text!r}")
+    return tuple(sorted(set(vals)))
+
+
+def _parse_floats(text: str, flag: str) -> tuple[float, ...]:
+    try:
+        vals = tuple(float(t) for t in text.replace(" ", "").split(",") if t)
+    except ValueError:
+        raise ValueError(f"{flag} must be comma-separated numbers, got {text!r}") from None
+    if not vals or any(not (0 < v <= 1) for v in vals):
+        raise ValueError(f"{flag} must list IoU thresholds in (0, 1], got {text!r}")
+    return vals
+
+
+class _Bar:
+    """rich progress bar on a terminal; plain lines otherwise (stderr)."""
+
+    def __init__(self, total: int, quiet: bool) -> None:
+        self.total, self.quiet, self.n, self.failed = total, quiet, 0, 0
+        self._bar: Any = None
+        self._task: Any = None
+
+    def __enter__(self) -> _Bar:
+        if not self.quiet and sys.stderr.isatty():
+            from rich.console import Console
+            from rich.progress import (
+                BarColumn,
+                MofNCompleteColumn,
+                Progress,
+                TextColumn,
+                TimeElapsedColumn,
+                TimeRemainingColumn,
+            )
+
+            self._bar = Progress(
+                TextColumn("scoring"),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TextColumn("{task.fields[failed]} failed"),
+                TimeElapsedColumn(),
+                TimeRemainingColumn(),
+                console=Console(stderr=True),
+                transient=True,
+            )
+            self._bar.__enter__()
+            self._task = self._bar.add_task("scoring", total=self.total, failed=0)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._bar is not None:
+            self._bar.__exit__(*exc)
+
+    def __call__(self, name: str, error: str | None) -> None:
+        self.n += 1
+        if error is not None:
+            self.failed += 1
+            msg = f"imgcut evaluate: {name}: failed, skipped: {error}"
+            if self._bar is not None:
+                self._bar.console.print(msg, markup=False, highlight=False)
+            else:
+                typer.echo(msg, err=True)
+        if self._bar is not None:
+            self._bar.update(self._task, advance=1, failed=self.failed)
+        elif not self.quiet:
+            typer.echo(f"[{self.n}/{self.total}] {name} {'failed' if error else 'ok'}", err=True)
+
+
+@app.command("evaluate", no_args_is_help=True)
+def evaluate_command(
+    data_dir: Annotated[
+        Path,
+        typer.Argument(
+            help="Dataset folder: images/ with groundTruth/*.mat (BSDS layout) or masks/ "
+            "(label images, 0 = background)."
+        ),
+    ],
+    out: Annotated[Path, typer.Option("--out", "-o", help="Report folder (created).")],
+    regions: Annotated[
+        str,
+        typer.Option(
+            "--regions",
+            help="Region counts swept per image (hierarchy levels), comma-separated.",
+        ),
+    ] = "2,3,4,6,8,12,16,24,32",
+    mode: Annotated[
+        str,
+        typer.Option(
+            "--mode",
+            help="auto (regions for BSDS layout, objects for masks), regions or objects.",
+        ),
+    ] = "auto",
+    method: Annotated[
+        str, typer.Option("--method", help="Region method: recursive (one run) or kway.")
+    ] = "recursive",
+    limit: Annotated[
+        int | None, typer.Option("--limit", min=1, help="Score only the first N images.")
+    ] = None,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1, help="Worker processes.")] = 1,
+    max_dist: Annotated[
+        float,
+        typer.Option("--max-dist", help="Boundary tolerance as a fraction of the diagonal."),
+    ] = 0.0075,
+    iou: Annotated[
+        str, typer.Option("--iou", help="Objects mode: IoU thresholds, comma-separated.")
+    ] = "0.5,0.6,0.7,0.8,0.9",
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress output.")] = False,
+) -> None:
+    """Segment every image of a dataset folder and score it against the human ground truth.
+
+    Writes per_image.csv, summary.csv/.md (ODS, OIS, Best), a boundary precision-recall
+    plot, a histogram of per-image scores and overlays of the best and worst images.
+    """
+    from imgcut.evaluation import evaluate_dataset, write_report
+    from imgcut.groundtruth import GroundTruthError, find_dataset
+
+    name = "evaluate"
+    try:
+        counts = _parse_ints(regions, "--regions")
+        ths = _parse_floats(iou, "--iou")
+        if mode not in ("auto", "regions", "objects"):
+            raise ValueError(f"--mode must be auto, regions or objects; got {mode!r}")
+        if method not in ("recursive", "kway"):
+            raise ValueError(f"--method must be recursive or kway; got {method!r}")
+        if not (0 < max_dist < 1):
+            raise ValueError(f"--max-dist must be in (0, 1), got {max_dist}")
+        if not data_dir.exists():
+            raise ValueError(f"{data_dir}: no such folder")
+        dataset = find_dataset(data_dir)
+        if out.exists() and not out.is_dir():
+            raise ValueError(f"{out}: exists and is not a folder")
+        if out.resolve() == data_dir.resolve():
+            raise ValueError(f"{out}: the report folder must differ from the dataset folder")
+    except (ValueError, GroundTruthError) as exc:
+        raise _fail(name, exc, EXIT_USAGE) from None
+    total = len(dataset.items[:limit] if limit else dataset.items)
+    for p in dataset.unmatched:
+        typer.echo(f"imgcut evaluate: {p}: no ground truth of the same name, skipped", err=True)
+    try:
+        with _Bar(total, quiet) as bar:
+            result = evaluate_dataset(
+                data_dir,
+                counts=counts,
+                mode=mode,
+                limit=limit,
+                jobs=jobs,
+                max_dist=max_dist,
+                iou_thresholds=ths,
+                segment_options={"method": method} if method != "recursive" else {},
+                progress=bar,
+            )
+        written = write_report(result, out)
+    except KeyboardInterrupt:
+        raise _fail(name, "interrupted", EXIT_INTERRUPTED) from None
+    except (ValueError, OSError) as exc:
+        raise _fail(name, exc, EXIT_DATA) from None
+    _print_summary(result, out, len(written))
+    if result.failures:
+        raise typer.Exit(EXIT_DATA)
+
+
+def _print_summary(result: Any, out: Path, n_files: int) -> None:
+    if result.mode == "regions":
+        r, b = result.regions, result.boundaries
+        typer.echo(
+            f"{len(result.images)} images: covering ODS {r.covering_ods:.3f} OIS "
+            f"{r.covering_ois:.3f} Best {r.covering_best:.3f}; PRI ODS {r.pri_ods:.3f}; "
+            f"VoI ODS {r.voi_ods:.3f}; boundary F ODS {b.ods_f:.3f} OIS {b.ois_f:.3f}"
+        )
+    else:
+        s = result.instances
+        typer.echo(
+            f"{len(result.images)} images: F1 {s.f1[0]:.3f} (P {s.precision[0]:.3f}, "
+            f"R {s.recall[0]:.3f}) at IoU {s.thresholds[0]:g}; split {s.n_split}, "
+            f"merged {s.n_merged}"
+        )
+    if result.failures:
+        typer.echo(f"{len(result.failures)} images failed (listed in summary.md)")
+    typer.echo(f"report: {out / 'summary.md'} ({n_files} files)")
+
+
+def _read_segmentation(path: Path) -> Any:
+    import numpy as np
+
+    from imgcut.groundtruth import read_label_image
+
+    if path.suffix.lower() == ".npy":
+        try:
+            arr = np.load(path, allow_pickle=False)
+        except Exception as exc:
+            raise ValueError(f"{path}: cannot read as a .npy array ({exc})") from None
+        if arr.ndim != 2 or arr.dtype.kind not in "iub":
+            raise ValueError(
+                f"{path}: expected a 2-D integer label array, got {arr.dtype} {arr.shape}"
+            )
+        return arr
+    return read_label_image(path)
+
+
+def _jsonable(d: dict[str, Any]) -> dict[str, Any]:
+    out = {}
+    for k, v in d.items():
+        v = v.tolist() if hasattr(v, "tolist") else v
+        out[k] = None if isinstance(v, float) and not math.isfinite(v) else v
+    return out
+
+
+@app.command("score", no_args_is_help=True)
+def score_command(
+    segmentation: Annotated[
+        Path, typer.Argument(help="Label image to score (PNG/TIFF/.npy; 0 = no region).")
+    ],
+    ground_truth: Annotated[
+        list[Path],
+        typer.Argument(
+            help="Human segmentations: .mat (BSDS), label images (0 = unlabelled) or folders."
+        ),
+    ],
+    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object.")] = False,
+    objects: Annotated[
+        bool, typer.Option("--objects", help="Instance measures (first ground truth only).")
+    ] = False,
+    max_dist: Annotated[
+        float,
+        typer.Option("--max-dist", help="Boundary tolerance as a fraction of the diagonal."),
+    ] = 0.0075,
+    iou: Annotated[
+        str, typer.Option("--iou", help="With --objects: IoU thresholds, comma-separated.")
+    ] = "0.5,0.6,0.7,0.8,0.9",
+) -> None:
+    """Print covering, PRI, VoI and boundary P/R/F of one segmentation (or object scores)."""
+    from imgcut.evaluation import score_image
+    from imgcut.groundtruth import GroundTruth, GroundTruthError, read_ground_truth
+    from imgcut.metrics import instance_scores
+
+    name = "score"
+    try:
+        ths = _parse_floats(iou, "--iou")
+        if not (0 < max_dist < 1):
+            raise ValueError(f"--max-dist must be in (0, 1), got {max_dist}")
+        for p in [segmentation, *ground_truth]:
+            if not p.exists():
+                raise ValueError(f"{p}: no such file or folder")
+    except ValueError as exc:
+        raise _fail(name, exc, EXIT_USAGE) from None
+    try:
+        seg = _read_segmentation(segmentation)
+        truths = [read_ground_truth(p) for p in ground_truth]
+        segs = tuple(s for t in truths for s in t.segmentations)
+        for t, p in zip(truths, ground_truth, strict=True):
+            if t.shape != seg.shape:
+                raise ValueError(
+                    f"{p}: ground truth shape {t.shape} differs from the segmentation {seg.shape}"
+                )
+        bnds = None
+        if all(t.boundaries is not None for t in truths):
+            bnds = tuple(b for t in truths for b in t.boundaries)  # type: ignore[union-attr]
+        truth = GroundTruth(segs, bnds)
+        if objects:
+            s = instance_scores(seg, segs[0], thresholds=ths)
+            result: dict[str, Any] = {
+                k: getattr(s, k)
+                for k in (
+                    "thresholds", "precision", "recall", "f1", "mean_iou", "true_positives",
+                    "false_positives", "false_negatives", "n_true", "n_predicted", "n_split",
+                    "n_merged",
+                )
+            }  # fmt: skip
+        else:
+            result = score_image(seg, truth, max_dist=max_dist).as_dict()
+    except (ValueError, GroundTruthError, OSError) as exc:
+        raise _fail(name, exc, EXIT_DATA) from None
+    result = _jsonable(result)
+    if as_json:
+        typer.echo(json.dumps(result))
+        return
+    width = max(len(k) for k in result)
+    for k, v in result.items():
+        if isinstance(v, list):
+            v = ", ".join(f"{x:.4g}" if isinstance(x, float) else str(x) for x in v)
+        elif isinstance(v, float):
+            v = f"{v:.4f}"
+        typer.echo(f"{k:<{width}}  {v}")
