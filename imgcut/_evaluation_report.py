@@ -178,10 +178,11 @@ def _overlay_panel(res: Any, im: Any, level: int, score: float, label: str, path
     truth = read_ground_truth(item.truth)
     labels = im.labels[level]
     humans = truth.segmentations[:4]
-    fig = _figure(3.2 * (1 + len(humans)), 3.0)
+    fig = _figure(3.6 * (1 + len(humans)), 3.4)
+    fig.suptitle(im.name, fontsize=8)
     ax = fig.add_subplot(1, 1 + len(humans), 1)
     ax.imshow(render_overlay(pixels, labels, boundary_colour="auto"))
-    ax.set_title(f"{im.name}: {label} {score:.3f}", fontsize=8)
+    ax.set_title(f"imgcut: {label} {score:.3f}", fontsize=8)
     ax.axis("off")
     rgb = display_rgb(pixels)
     for k, h in enumerate(humans):
@@ -226,13 +227,11 @@ def write_report_files(res: Any, out_dir: Path, *, n_examples: int = 3) -> list[
         level = 0
         name = f"F1@{th:g}"
     order = np.argsort(per_image, kind="stable")
-    n = min(n_examples, len(order))
-    picks = [("best", i) for i in order[::-1][:n]] + [("worst", i) for i in order[:n]]
-    seen: set[tuple[str, int]] = set()
+    n_best = min(n_examples, (len(order) + 1) // 2)  # best and worst stay distinct images
+    best = [int(i) for i in order[::-1][:n_best]]
+    worst = [int(i) for i in order[: min(n_examples, len(order) - n_best)]]
+    picks = [("best", i) for i in best] + [("worst", i) for i in worst if i not in best]
     for tag, i in picks:
-        if (tag, int(i)) in seen:
-            continue
-        seen.add((tag, int(i)))
         im = res.images[int(i)]
         fname = f"overlay_{tag}_{im.name}.png"
         try:
