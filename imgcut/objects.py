@@ -539,25 +539,41 @@ def _mean_cut_affinity(W, side: np.ndarray) -> float:
     return float(coo.data[cross].sum() / n) if n else 0.0
 
 
-def _component_shapes(comp: np.ndarray, n: int, min_area: int) -> tuple[np.ndarray, np.ndarray]:
-    """Area and solidity of every component (solidity NaN below ``min_area``)."""
+def _component_shapes(
+    comp: np.ndarray, n: int, min_area: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Area, solidity (NaN below ``min_area``) and inscribed radius of every component."""
     area = np.bincount(comp.ravel(), minlength=n + 1)[1:]
     sol = np.full(n, np.nan)
     for i, sl in enumerate(ndi.find_objects(comp)):
         if sl is not None and area[i] >= min_area:
             sol[i] = _solidity(comp[sl] == i + 1)
-    return area, sol
+    if n:
+        dist = ndi.distance_transform_edt(comp > 0)
+        inscribed = np.asarray(ndi.maximum(dist, comp, np.arange(1, n + 1)), dtype=np.float64)
+    else:
+        inscribed = np.zeros(0)
+    return area, sol, inscribed
 
 
-def _estimate_object_area(area: np.ndarray, sol: np.ndarray, min_area: int) -> float:
-    """Median area of the compact (likely single) components."""
-    if area.size == 0:
+def _estimate_object_area(
+    area: np.ndarray, sol: np.ndarray, inscribed: np.ndarray, min_area: int
+) -> float:
+    """Median area of the components that look like single objects.
+
+    Single: convex (solidity ≥ 0.9) and not much larger than the disk inscribed in it,
+    ``area ≤ 1.6 π r_in²`` (an ellipse with axis ratio up to 1.6). Two touching round objects
+    have about twice the area of their inscribed disk, so a field with few objects, half of them
+    in pairs, does not mistake a pair for the typical object. Without such a component, the
+    median inscribed disk ``π r_in²`` of the components of at least ``min_area`` is used.
+    """
+    big = area >= min_area
+    if not big.any():
         return float("nan")
-    keep = (area >= min_area) & (sol >= 0.9)
-    if keep.sum() >= 3:
-        return float(np.median(area[keep]))
-    keep = area >= min_area
-    return float(np.median(area[keep])) if keep.any() else float(np.median(area))
+    single = big & (sol >= 0.9) & (area <= 1.6 * np.pi * inscribed**2)
+    if single.any():
+        return float(np.median(area[single]))
+    return float(np.median(np.pi * inscribed[big] ** 2))
 
 
 # ============================================================================ public
@@ -586,8 +602,9 @@ def segment_objects(
         Gray image (any real dtype), e.g. a nuclear stain. Bright objects on a dark background.
     object_diameter : float, optional
         Typical object diameter, in pixels (or micrometres when ``pixel_size`` is given).
-        Estimated from the image when omitted: the median area of the compact connected
-        foreground components (solidity ≥ 0.9), which are mostly single objects.
+        Estimated from the image when omitted: the median area of the connected foreground
+        components that look like single objects (convex, and at most 1.6 times the area of
+        their inscribed disk; see ``docs/nuclei.md``).
     pixel_size : float, optional
         Pixel size in micrometres; when given, ``object_diameter`` is read in micrometres.
     min_area : int, default 30
@@ -736,13 +753,13 @@ def segment_objects(
     timings["foreground"] = time.perf_counter() - t0
 
     comp, n_comp = ndi.label(fg)
-    comp_area, comp_solidity = _component_shapes(comp, n_comp, min_area)
+    comp_area, comp_solidity, comp_inscribed = _component_shapes(comp, n_comp, min_area)
     # expected object area
     if object_diameter is not None:
         d_px = object_diameter / pixel_size if pixel_size is not None else object_diameter
         obj_area = float(np.pi * d_px * d_px / 4.0)
     else:
-        obj_area = _estimate_object_area(comp_area, comp_solidity, min_area)
+        obj_area = _estimate_object_area(comp_area, comp_solidity, comp_inscribed, min_area)
     if not np.isfinite(obj_area):
         obj_area = float(max(4 * min_area, 1))
 
@@ -841,8 +858,6 @@ def _merge_small(pieces: np.ndarray, area: np.ndarray, min_area: int) -> np.ndar
     small = np.flatnonzero(area < min_area) + 1
     if small.size == 0:
         return pieces
-    out = pieces.copy()
-    h, w = pieces.shape
     a = np.concatenate([pieces[:, :-1].ravel(), pieces[:-1, :].ravel()])
     b = np.concatenate([pieces[:, 1:].ravel(), pieces[1:, :].ravel()])
     touch = (a != b) & (a > 0) & (b > 0)
@@ -863,9 +878,7 @@ def _merge_small(pieces: np.ndarray, area: np.ndarray, min_area: int) -> np.ndar
     first = np.r_[True, s[1:] != s[:-1]]
     lut = np.arange(int(pieces.max()) + 1)
     lut[s[first]] = d[first]
-    out = lut[pieces]
-    del h, w
-    return out
+    return lut[pieces]
 
 
 def _measure(labels: np.ndarray, raw: np.ndarray) -> dict[str, np.ndarray]:

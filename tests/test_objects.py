@@ -175,6 +175,16 @@ def test_touching_pair_split_with_estimated_size():
     assert best_iou(truth, res.labels).min() > 0.7
 
 
+@pytest.mark.parametrize("others", [[], [(15, 15)], [(15, 15), (15, 80)]])
+def test_pair_split_in_a_nearly_empty_field(others):
+    # few components, one of them a pair: the size estimate must not take the pair for a
+    # typical object (inscribed-disk rule, see _estimate_object_area)
+    img, truth = blob_field([(48, 37), (48, 58), *others], seed=9)
+    res = segment_objects(img, min_area=20)
+    assert res.n_objects == 2 + len(others)
+    assert best_iou(truth, res.labels).min() > 0.75
+
+
 def test_single_objects_are_not_split():
     img, truth = blob_field([(20, 20), (20, 75), (75, 20), (75, 75)], seed=4)
     res = segment_objects(img, min_area=20)
