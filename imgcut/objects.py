@@ -582,15 +582,15 @@ def segment_objects(
     *,
     object_diameter: float | None = None,
     pixel_size: float | None = None,
-    min_area: int = 30,
+    min_area: int | None = 30,
     small_objects: str = "drop",
     exclude_border: bool = False,
     foreground: str = "ncut",
     smoothing: float = 1.0,
     min_contrast: float = 5.0,
-    max_ncut: float = 0.05,
+    max_ncut: float | None = 0.05,
     shape_weight: float = 0.5,
-    radius: float = 3.0,
+    radius: float | None = 3.0,
     coarsen: int | None = None,
     seed=0,
 ) -> ObjectSegmentation:
@@ -607,7 +607,7 @@ def segment_objects(
         their inscribed disk; see ``docs/nuclei.md``).
     pixel_size : float, optional
         Pixel size in micrometres; when given, ``object_diameter`` is read in micrometres.
-    min_area : int, default 30
+    min_area : int or None, default 30 (None: the default)
         Objects with fewer pixels are debris: dropped, or merged into the touching object they
         share the longest border with (``small_objects``).
     small_objects : {"drop", "merge"}, default "drop"
@@ -622,12 +622,12 @@ def segment_objects(
         Absolute test: the field has foreground only if the median foreground intensity exceeds
         the median background by ``min_contrast`` noise standard deviations, and each object's
         mean must exceed the background median by the same margin.
-    max_ncut : float, default 0.05
+    max_ncut : float or None, default 0.05 (None: the default)
         A component (or piece) is only split when its best cut has ``Ncut ≤ max_ncut``.
     shape_weight : float, default 0.5
         Weight β of the distance-transform shape cue in the height map
         ``h = (1 − β) · intensity + β · distance`` whose valleys separate touching objects.
-    radius : float, default 3.0
+    radius : float or None, default 3.0 (None: the default)
         Radius (pixels) of the affinity graph used for splitting.
     coarsen : int, optional
         The eigenvector of each split is computed on a grid coarsened by this factor ``f``
@@ -704,12 +704,17 @@ def segment_objects(
         )
     if foreground not in _FOREGROUND_METHODS:
         raise ValueError(f"foreground must be one of {_FOREGROUND_METHODS}, got {foreground!r}")
-    min_area = int(min_area)
+    # None means the default (lets a caller pass its own unset options straight through)
+    min_area = 30 if min_area is None else int(min_area)
+    max_ncut = 0.05 if max_ncut is None else float(max_ncut)
+    radius = 3.0 if radius is None else float(radius)
     if min_area < 1:
         raise ValueError(f"min_area must be >= 1, got {min_area}")
     for name, val in (("smoothing", smoothing), ("min_contrast", min_contrast)):
         if not (np.isfinite(val) and val >= 0):
             raise ValueError(f"{name} must be finite and >= 0, got {val}")
+    if not (np.isfinite(radius) and radius >= 1):
+        raise ValueError(f"radius must be finite and >= 1 (pixels), got {radius}")
     if not (np.isfinite(max_ncut) and max_ncut > 0):
         raise ValueError(f"max_ncut must be finite and > 0, got {max_ncut}")
     if not (0.0 <= shape_weight <= 1.0):

@@ -306,6 +306,13 @@ def test_touching_pair_split_on_every_grid(coarsen):
     assert best_iou(truth, res.labels).min() > 0.75
 
 
+def test_none_options_mean_defaults():
+    img, _ = blob_field([(50, 37), (50, 58), (15, 15)], seed=9)
+    a = segment_objects(img)
+    b = segment_objects(img, min_area=None, max_ncut=None, radius=None)
+    np.testing.assert_array_equal(a.labels, b.labels)
+
+
 def test_diameter_in_micrometres_equals_pixels():
     img, _ = blob_field([(48, 37), (48, 58)], seed=9)
     a = segment_objects(img, object_diameter=24)
@@ -328,6 +335,7 @@ def test_diameter_in_micrometres_equals_pixels():
         (np.zeros((4, 4)), {"pixel_size": -1}, "pixel_size"),
         (np.zeros((4, 4)), {"object_diameter": 0}, "object_diameter"),
         (np.zeros((4, 4)), {"coarsen": 0}, "coarsen"),
+        (np.zeros((4, 4)), {"radius": 0.5}, "radius"),
         (np.zeros((4, 4)), {"coarsen": 1.5}, "coarsen"),
     ],
 )
