@@ -463,6 +463,7 @@ class _Candidate:
     residual: float
     vectors: np.ndarray | None  # eigenvectors of the region (for warm starts)
     comp: np.ndarray | None = None  # component labels of the region minus the cut edges
+    graph: sp.csr_matrix | None = None  # the region's graph minus the cut edges
 
 
 def recursive_ncut(
@@ -586,11 +587,12 @@ def recursive_ncut(
         )
         return ep
 
-    def candidate(tree_id, idx, x0, ep=None, comp=None) -> _Candidate | None:
+    def candidate(tree_id, idx, x0, ep=None, comp=None, sub=None) -> _Candidate | None:
         m = idx.size
         if m < 2 * min_size or m < 2:
             return None
-        sub = W if m == n else W[idx][:, idx]
+        if sub is None:
+            sub = W if m == n else W[idx][:, idx]
         if comp is None:
             comp = _components(sub)
         sizes = np.bincount(comp)
@@ -606,7 +608,7 @@ def recursive_ncut(
                 mask = comp == big
                 vec = x0 if x0 is not None else (None if ep is None else ep.vectors)
                 return _Candidate(
-                    0.0, tree_id, idx, mask, 0.0, 0.0, 0.0, "components", 0.0, vec, comp
+                    0.0, tree_id, idx, mask, 0.0, 0.0, 0.0, "components", 0.0, vec, comp, sub
                 )
             # One real component plus dust: cut the real one; the dust (no edges to it, so
             # no change to the cut) joins the larger side below.
@@ -634,7 +636,7 @@ def recursive_ncut(
         solid = _solid_cut(sub, sw, min_size)
         if solid is None:
             return None
-        t, mask, cut_comp = solid
+        t, mask, cut_comp, cut_graph = solid
         if core is not None:
             full = np.zeros(m, dtype=bool)
             full[core[mask]] = True
@@ -644,7 +646,7 @@ def recursive_ncut(
             padded = np.zeros((m, vectors.shape[1]))
             padded[core] = vectors
             vectors = padded
-            cut_comp = None  # the children find their own components
+            cut_comp = cut_graph = None  # the children find their own components
         return _Candidate(
             float(sw.ncut_values[t]),
             tree_id,
@@ -657,6 +659,7 @@ def recursive_ncut(
             res2,
             vectors,
             cut_comp,
+            cut_graph,
         )
 
     root_idx = np.arange(n, dtype=np.int64)
@@ -711,7 +714,12 @@ def recursive_ncut(
         for child_id, child_idx, child_mask in ((a_id, idx_a, mask), (b_id, idx_b, ~mask)):
             x0 = None if cand.vectors is None else cand.vectors[child_mask]
             child_comp = None if cand.comp is None else cand.comp[child_mask]
-            c = candidate(child_id, child_idx, x0, comp=child_comp)
+            # Without cut edges the region's graph is block diagonal: a child's subgraph is
+            # its rows, renumbered (no column search).
+            child_sub = None
+            if cand.graph is not None:
+                child_sub = _diagonal_block(cand.graph, np.flatnonzero(child_mask))
+            c = candidate(child_id, child_idx, x0, comp=child_comp, sub=child_sub)
             if c is not None:
                 heapq.heappush(heap, (c.ncut, counter, c))
                 counter += 1
@@ -767,14 +775,22 @@ def _components(G: sp.csr_matrix) -> np.ndarray:
     return comp
 
 
-def _cut_components(W: sp.csr_matrix, mask: np.ndarray) -> np.ndarray:
-    """Component labels of ``W`` with the edges between ``mask`` and ``~mask`` removed."""
+def _cut_graph(W: sp.csr_matrix, mask: np.ndarray) -> sp.csr_matrix:
+    """``W`` with the edges between ``mask`` and ``~mask`` removed (same node numbering)."""
     keep = mask[W.indices]
     keep ^= np.repeat(~mask, np.diff(W.indptr))  # True where both ends are on the same side
     indptr = _kept_indptr(keep, W.indptr)
-    # float64 data: scipy's graph validation would otherwise copy the whole matrix
-    G = sp.csr_matrix((np.ones(int(indptr[-1])), W.indices[keep], indptr), shape=W.shape)
-    return _components(G)
+    return sp.csr_matrix((W.data[keep], W.indices[keep], indptr), shape=W.shape)
+
+
+def _diagonal_block(G: sp.csr_matrix, idx: np.ndarray) -> sp.csr_matrix:
+    """``G[idx][:, idx]`` when no row of ``idx`` has an entry outside ``idx`` (ascending)."""
+    rows = G[idx]
+    position = np.empty(G.shape[0], dtype=rows.indices.dtype)
+    position[idx] = np.arange(idx.size, dtype=position.dtype)
+    return sp.csr_matrix(
+        (rows.data, position[rows.indices], rows.indptr), shape=(idx.size, idx.size)
+    )
 
 
 def _kept_indptr(keep: np.ndarray, indptr: np.ndarray) -> np.ndarray:
@@ -793,29 +809,31 @@ def _kept_indptr(keep: np.ndarray, indptr: np.ndarray) -> np.ndarray:
 
 def _solid_cut(
     W: sp.csr_matrix, sw: SweepCut, min_size: int, max_tries: int = 8
-) -> tuple[int, np.ndarray, np.ndarray | None] | None:
+) -> tuple[int, np.ndarray, np.ndarray | None, sp.csr_matrix | None] | None:
     """The cheapest sweep threshold whose sides each hold a connected piece of min_size nodes.
 
     A side made only of pieces smaller than ``min_size`` would be dissolved by the
     fragment merging of :func:`imgcut.regions.enforce_connectivity`; on graphs with nearly
     isolated specks such sides can have tiny Ncut values. Thresholds are tried in increasing
-    Ncut order, at most ``max_tries`` of them. Returns the prefix index, the mask and the
-    component labels of the two sides (reused by the children), or None.
+    Ncut order, at most ``max_tries`` of them. Returns the prefix index, the mask, the
+    component labels of the two sides and the graph without the cut edges (both reused by
+    the children), or None.
     """
     if min_size <= 1:
-        return sw.size_a - 1, sw.mask, None
+        return sw.size_a - 1, sw.mask, None, None
     costs = np.where(sw.valid, sw.ncut_values, np.inf)
     for t in np.argsort(costs, kind="stable")[:max_tries]:
         if not np.isfinite(costs[t]):
             break
         mask = np.zeros(sw.mask.size, dtype=bool)
         mask[sw.order[: t + 1]] = True
-        comp = _cut_components(W, mask)
+        G = _cut_graph(W, mask)
+        comp = _components(G)  # G has float64 data, so scipy does not copy it
         sizes = np.bincount(comp)
         on_a = np.zeros(sizes.size, dtype=bool)
         on_a[comp[mask]] = True
         if sizes[on_a].max() >= min_size and sizes[~on_a & (sizes > 0)].max() >= min_size:
-            return int(t), mask, comp
+            return int(t), mask, comp, G
     return None
 
 
