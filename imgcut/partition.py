@@ -321,7 +321,9 @@ class SplitRecord:
     conductance : float
         Conductance ``cut / min(vol)`` of the split.
     lambda2 : float
-        Second smallest eigenvalue of the parent's normalized Laplacian (0 when disconnected).
+        Second smallest eigenvalue of the normalized Laplacian of the graph that was cut: the
+        parent region, or its one large component when the rest is dust (0 for a split
+        between components).
     cheeger_lower, cheeger_upper : float
         Cheeger interval ``lambda2 / 2 <= phi* <= sqrt(2 lambda2)`` for the parent's
         optimal conductance ``phi*`` (Chung 1997, Theorem 2.2).
@@ -512,18 +514,30 @@ def recursive_ncut(
 
     Notes
     -----
-    Every leaf region ``R`` gets one candidate split, computed when the region is created:
+    Every leaf region ``R`` gets one candidate split, computed when the region is created.
+    Connected components of ``W[R][:, R]`` with at least ``min_size`` nodes are *real*,
+    smaller ones are *dust* (they could never be regions of their own):
 
-    1. If the subgraph ``W[R][:, R]`` is disconnected, split its largest connected component
-       from the rest: ``cut = 0``, so ``Ncut = 0`` (free).
-    2. Otherwise solve ``(D_R - W_R) y = lambda D_R y`` for the few smallest eigenpairs and
-       take the best :func:`sweep_cut` of the second eigenvector ``y_2`` (Shi & Malik 2000,
-       section 3.1: "the eigenvector with the second smallest eigenvalue").
+    1. With two or more real components, split the largest real component from the rest:
+       ``cut = 0``, so ``Ncut = 0`` (a free split; dust stays with the rest).
+    2. With one real component (plus dust), solve ``(D - W) y = lambda D y`` on it for the
+       few smallest eigenpairs and take the best :func:`sweep_cut` of the second
+       eigenvector (Shi & Malik 2000, section 3.1). The vector swept is the combination of
+       the returned eigenvectors that is D-orthogonal to the constant vector with the
+       smallest Rayleigh quotient, which is ``y_2`` itself unless the bottom of the spectrum
+       is numerically degenerate. Among the thresholds, the cheapest one whose two sides
+       each contain a connected piece of at least ``min_size`` nodes is taken (at most 8
+       tried; a side made only of dust would be dissolved by the region clean-up). Dust
+       joins the larger side. With no real component there is no candidate.
 
     A priority queue keyed by the candidate's Ncut value then repeatedly splits the region
     whose best cut is cheapest; ties go to the older region. The children's eigenproblems are
-    warm-started from the parent's eigenvectors restricted to them. The order of the splits
-    is the hierarchy.
+    warm-started from the parent's eigenvectors restricted to them (one column of the start
+    block is left random), and their subgraphs are diagonal blocks of the parent's graph
+    without the cut edges. The order of the splits is the hierarchy. Each split records the
+    Cheeger interval ``lambda_2 / 2 <= phi* <= sqrt(2 lambda_2)`` of the graph it cut
+    (Chung 1997, Theorem 2.2), and whether the sweep's best conductance respected the
+    upper bound.
 
     References
     ----------
