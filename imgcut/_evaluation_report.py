@@ -176,7 +176,7 @@ def _overlay_panel(res: Any, im: Any, level: int, score: float, label: str, path
     item = next(i for i in res.dataset.items if i.name == im.name)
     pixels = read_image(item.image).pixels
     truth = read_ground_truth(item.truth)
-    labels = im.labels[level]
+    labels = im.label_image(level)
     humans = truth.segmentations[:4]
     fig = _figure(3.6 * (1 + len(humans)), 3.4)
     fig.suptitle(im.name, fontsize=8)

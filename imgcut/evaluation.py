@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import time
+import zlib
 from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
@@ -314,10 +315,12 @@ class ImageResult:
         One per sweep entry (regions mode).
     instance : InstanceScores or None
         Objects mode.
-    labels : list of ndarray
-        The label images scored (one per sweep entry, or one in objects mode).
     seconds : float
         Segmentation plus scoring time.
+
+    The label images scored (one per sweep entry, or one in objects mode) are kept
+    zlib-compressed (label images shrink 20-100×, so a 100-image sweep stays small);
+    :meth:`label_image` returns one.
     """
 
     name: str
@@ -325,8 +328,27 @@ class ImageResult:
     n_regions: tuple[int, ...]
     scores: list[ImageScore] = field(default_factory=list)
     instance: InstanceScores | None = None
-    labels: list[np.ndarray] = field(default_factory=list)
     seconds: float = 0.0
+    packed_labels: list[tuple[bytes, str, tuple[int, ...]]] = field(default_factory=list)
+
+    def store_labels(self, labels: Sequence[np.ndarray]) -> None:
+        """Keep compressed copies of the label images (smallest fitting unsigned type)."""
+        self.packed_labels = []
+        for lab in labels:
+            arr = np.asarray(lab)
+            small = arr.astype(np.uint16) if arr.min() >= 0 and arr.max() < 65536 else arr
+            self.packed_labels.append(
+                (
+                    zlib.compress(np.ascontiguousarray(small).tobytes(), 1),
+                    small.dtype.str,
+                    arr.shape,
+                )
+            )
+
+    def label_image(self, index: int = 0) -> np.ndarray:
+        """The label image of sweep entry ``index`` (objects mode: 0), as int32."""
+        data, dtype, shape = self.packed_labels[index]
+        return np.frombuffer(zlib.decompress(data), dtype=dtype).reshape(shape).astype(np.int32)
 
 
 def _read_pixels(path: Path) -> np.ndarray:
@@ -357,10 +379,10 @@ def _evaluate_item(
         fn = object_segmenter or (lambda im: segment_objects_labels(im, **segment_options))
         labels = np.asarray(fn(image))
         inst = instance_scores(labels, truth.segmentations[0], thresholds=iou_thresholds)
-        return ImageResult(
-            item.name, (), (inst.n_predicted,), instance=inst, labels=[labels],
-            seconds=time.perf_counter() - t0,
-        )  # fmt: skip
+        res = ImageResult(item.name, (), (inst.n_predicted,), instance=inst)
+        res.store_labels([labels])
+        res.seconds = time.perf_counter() - t0
+        return res
     fn_sweep = sweep_segmenter or (lambda im, c: segment_sweep(im, c, **segment_options))
     levels = [np.asarray(lab) for lab in fn_sweep(image, counts)]
     if len(levels) != len(counts):
@@ -368,9 +390,10 @@ def _evaluate_item(
     bnd = human_boundaries(truth)
     scores = [score_image(lab, truth, max_dist=max_dist, boundaries=bnd) for lab in levels]
     n_reg = tuple(int(np.unique(lab[lab > 0]).size) for lab in levels)
-    return ImageResult(
-        item.name, counts, n_reg, scores=scores, labels=levels, seconds=time.perf_counter() - t0
-    )
+    res = ImageResult(item.name, counts, n_reg, scores=scores)
+    res.store_labels(levels)
+    res.seconds = time.perf_counter() - t0
+    return res
 
 
 # ---------------------------------------------------------------------------- datasets
@@ -574,9 +597,13 @@ def evaluate_dataset(
         first = failures[0][1] if failures else "no images"
         raise ValueError(f"{dataset.root}: every image failed (first: {first})")
     out = EvaluationResult(
-        dataset, run_mode, cts if run_mode == "regions" else (), ordered, failures,
+        dataset,
+        run_mode,
+        cts if run_mode == "regions" else (),
+        ordered,
+        failures,
         options={"max_dist": max_dist, "iou_thresholds": ths, "segment": opts, "limit": limit},
-    )  # fmt: skip
+    )
     if run_mode == "regions":
         out.regions = summarize_regions([[s.region for s in r.scores] for r in ordered])
         out.boundaries = summarize_boundaries([[s.boundary for s in r.scores] for r in ordered])

@@ -90,6 +90,15 @@ def test_evaluate_bsds_layout_with_stub(tmp_path):
     assert res.regions.covering_best >= res.regions.covering_ois >= res.regions.covering_ods
 
 
+def test_label_images_are_kept_compressed(tmp_path):
+    root = _make_bsds(tmp_path / "ds", n=1)
+    res = evaluate_dataset(root, counts=(2, 3), sweep_segmenter=truth_sweep)
+    im = res.images[0]
+    assert np.array_equal(im.label_image(1), _scene(0))
+    assert im.label_image(0).dtype == np.int32 and im.label_image(0).max() == 2
+    assert sum(len(p[0]) for p in im.packed_labels) < _scene(0).nbytes
+
+
 def test_failed_image_is_reported_and_skipped(tmp_path):
     root = _make_bsds(tmp_path / "ds")
     (root / "images" / "1.jpg").write_bytes(b"broken")
