@@ -11,6 +11,7 @@ from imgcut.metrics import (
     BoundaryCounts,
     boundary_counts,
     boundary_scores,
+    boundary_sweep,
     f_measure,
     label_boundaries,
     match_boundaries,
@@ -165,3 +166,21 @@ def test_bad_human_stack():
         boundary_counts(np.zeros((3, 3)), [])
     with pytest.raises(ValueError, match="shape"):
         boundary_counts(np.zeros((3, 3)), [np.zeros((4, 3))])
+
+
+def test_soft_map_sweep_trades_precision_for_recall():
+    # Lower thresholds add boundary pixels: recall cannot fall, and noise lowers precision.
+    rng = np.random.default_rng(0)
+    g = _vline((60, 60), 30)
+    soft = np.where(g, 0.6, 0.0)
+    soft[:30, 30] = 0.8  # upper half of the line is stronger
+    dots = rng.random((60, 60)) < 0.03
+    dots[:, 26:35] = False  # away from the line, so thinning leaves the line alone
+    soft[dots] = 0.4  # sparse false boundary pixels
+    counts = boundary_sweep(soft, [g], [0.7, 0.5, 0.3])
+    recalls = [c.recall for c in counts]
+    assert recalls == sorted(recalls) and recalls[0] == pytest.approx(0.5)
+    assert counts[1].recall == 1.0 and counts[1].precision == 1.0
+    assert counts[2].precision < 1.0
+    with pytest.raises(ValueError, match="thresholds"):
+        boundary_sweep(soft, [g], [])

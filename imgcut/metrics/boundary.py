@@ -22,6 +22,7 @@ __all__ = [
     "BoundaryCounts",
     "boundary_counts",
     "boundary_scores",
+    "boundary_sweep",
     "f_measure",
     "label_boundaries",
     "match_boundaries",
@@ -360,3 +361,52 @@ def boundary_scores(
     # Thinned like the machine map: this reproduces the BSDS500 ``Boundaries`` maps.
     humans = [thin(label_boundaries(g)) for g in as_label_stack(ground_truth, seg.shape)]
     return boundary_counts(label_boundaries(seg), humans, max_dist=max_dist)
+
+
+def boundary_sweep(
+    soft_map: object,
+    human_boundaries: Sequence[object] | np.ndarray,
+    thresholds: Sequence[float],
+    *,
+    max_dist: float = DEFAULT_MAX_DIST,
+) -> list[BoundaryCounts]:
+    """Boundary counts of a soft boundary map at several thresholds.
+
+    Parameters
+    ----------
+    soft_map : array_like of float, shape (H, W)
+        Boundary strength (e.g. a probability or an edge map); larger = more boundary.
+    human_boundaries : array_like, shape (H, W) or (K, H, W), or sequence of (H, W)
+        Human boundary maps (non-zero = boundary).
+    thresholds : sequence of float
+        The machine map at threshold t is ``soft_map >= t``, thinned.
+    max_dist : float, default 0.0075
+        Tolerance as a fraction of the image diagonal.
+
+    Returns
+    -------
+    list of BoundaryCounts
+        One per threshold, in the order given; pass a list of these per image to
+        :func:`imgcut.metrics.summarize_boundaries` for ODS / OIS.
+
+    Raises
+    ------
+    ValueError
+        If ``soft_map`` is not a finite 2-D array or ``thresholds`` is empty.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> g = np.zeros((20, 20), bool); g[:, 10] = True
+    >>> soft = np.where(g, 0.9, 0.1)
+    >>> [round(c.f, 2) for c in boundary_sweep(soft, [g], [0.05, 0.5])]
+    [0.0, 1.0]
+    """
+    soft = np.asarray(soft_map, dtype=np.float64)
+    if soft.ndim != 2 or not np.all(np.isfinite(soft)):
+        raise ValueError(f"soft_map must be a finite 2-D (H, W) array, got shape {soft.shape}")
+    ts = list(thresholds)
+    if not ts:
+        raise ValueError("thresholds is empty; give at least one threshold")
+    humans = _as_boundary_stack(human_boundaries, soft.shape)
+    return [boundary_counts(soft >= t, humans, max_dist=max_dist) for t in ts]
