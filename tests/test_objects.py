@@ -399,3 +399,20 @@ def test_bbbc039_ncut_foreground_agrees_with_otsu(shared_data):
         assert (a & b).sum() / (a | b).sum() >= 0.90
         gt = truth > 0
         assert (a & gt).sum() / (a | gt).sum() >= 0.90  # vs the hand-made masks
+
+
+@pytest.mark.shared
+def test_bbbc039_background_window_gives_no_objects(shared_data):
+    # A 96 x 96 window of real camera background (no annotated nucleus within 5 px) must give
+    # no object. Measured: contrast 2.6 noise sigmas for field B02_s9, below the test's 5.
+    from scipy import ndimage as ndi
+
+    image, truth = _bbbc039_fields(shared_data)[2]
+    near = ndi.binary_dilation(truth > 0, iterations=5)
+    busy = ndi.uniform_filter(near.astype(float), 96)[48:-48, 48:-48]
+    ys, xs = np.nonzero(busy == 0)
+    assert ys.size > 0
+    y, x = int(ys[0]), int(xs[0])
+    res = segment_objects(image[y : y + 96, x : x + 96])
+    assert res.n_objects == 0
+    assert res.contrast < 5.0
