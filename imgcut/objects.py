@@ -4,7 +4,7 @@ The setting of fluorescence micrographs of nuclei: bright objects on a dark back
 touching. Three stages, each a private helper below, the public function at the bottom:
 
 1. **Foreground** — a two-way normalized cut restricted to intensity thresholds, computed
-   exactly for every threshold from a gray-level graph (Tao, Jin & Zhang 2008), or Otsu's
+   exactly for every threshold from a gray-level graph (Tao et al. 2008), or Otsu's
    threshold (Otsu 1979) as the alternative. An absolute contrast test against the camera noise
    decides whether there is any foreground at all, so an empty field gives no objects.
 2. **Splitting** — every connected foreground component that is larger than one expected
@@ -190,7 +190,7 @@ def _gray_level_ncut(values: np.ndarray, *, n_levels: int, radius: int, sigma: f
             M += np.bincount(pair, weights=wgt.ravel(), minlength=n_levels * n_levels)
     M = M.reshape(n_levels, n_levels)
     M = M + M.T
-    # Tao, Jin & Zhang 2008: for threshold partitions, vol(A) and assoc(A, A) are partial sums
+    # Tao et al. 2008: for threshold partitions, vol(A) and assoc(A, A) are partial sums
     # of the gray-level affinity matrix M, so every threshold's Ncut costs O(1) after cumsums.
     vol_a = np.cumsum(M.sum(axis=1))
     assoc_a = np.diag(np.cumsum(np.cumsum(M, axis=0), axis=1))
@@ -252,7 +252,7 @@ def foreground_threshold(
     These choices were made on the BBBC039 fields (see ``docs/nuclei.md``): common practice
     for robust normalisation, not theory.
 
-    *Normalized cut over thresholds* (Tao, Jin & Zhang 2008). With pixel affinities
+    *Normalized cut over thresholds* (Tao et al. 2008). With pixel affinities
     ``w_ij = exp(−(v_i − v_j)²/σ_I² − ‖x_i − x_j‖²/r²)`` for ``‖x_i − x_j‖ ≤ r``
     (Shi & Malik 2000, eq. (11)), σ_I = 0.1, and the partition ``A_t = {v ≤ t}``,
     ``vol(A_t)`` and ``assoc(A_t, A_t)`` are sums over blocks of the ``L × L`` gray-level
@@ -263,8 +263,8 @@ def foreground_threshold(
 
     References
     ----------
-    .. [1] W. Tao, H. Jin and Y. Zhang, "Image thresholding using graph cuts", IEEE Trans.
-       SMC-A 38(5), 2008.
+    .. [1] W. Tao, H. Jin, Y. Zhang, L. Liu and D. Wang, "Image thresholding using graph
+       cuts", IEEE Trans. SMC-A 38(5), 2008, doi:10.1109/TSMCA.2008.2001068.
     .. [2] J. Shi and J. Malik, "Normalized cuts and image segmentation", IEEE TPAMI 22(8),
        2000.
     .. [3] N. Otsu, "A threshold selection method from gray-level histograms", IEEE Trans.
@@ -680,8 +680,8 @@ def segment_objects(
        2000.
     .. [2] J. Malik, S. Belongie, T. Leung and J. Shi, "Contour and texture analysis for image
        segmentation", IJCV 43(1), 2001.
-    .. [3] W. Tao, H. Jin and Y. Zhang, "Image thresholding using graph cuts", IEEE Trans.
-       SMC-A 38(5), 2008.
+    .. [3] W. Tao, H. Jin, Y. Zhang, L. Liu and D. Wang, "Image thresholding using graph
+       cuts", IEEE Trans. SMC-A 38(5), 2008, doi:10.1109/TSMCA.2008.2001068.
     .. [4] J. Serra, *Image Analysis and Mathematical Morphology*, Academic Press, 1982.
 
     Examples
