@@ -89,11 +89,17 @@ def test_evaluate_limit(bsds, tmp_path, stub_segmenter):
         (["--method", "greedy"], "--method"),
         (["--iou", "1.5"], "--iou"),
         (["--max-dist", "0"], "--max-dist"),
+        (["--limit", "0"], "--limit"),
+        (["--jobs", "0"], "--jobs"),
     ],
 )
 def test_evaluate_usage_errors(bsds, tmp_path, extra, needle):
     r = _run("evaluate", bsds, "--out", tmp_path / "r", *extra)
     _one_line_error(r, 2, "imgcut evaluate: error:", needle)
+
+
+def test_evaluate_needs_out(bsds):
+    _one_line_error(_run("evaluate", bsds), 2, "--out")
 
 
 def test_evaluate_bad_folder(tmp_path):

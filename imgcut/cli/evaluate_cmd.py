@@ -114,7 +114,9 @@ def evaluate_command(
             "(label images, 0 = background)."
         ),
     ],
-    out: Annotated[Path, typer.Option("--out", "-o", help="Report folder (created).")],
+    out: Annotated[
+        Path | None, typer.Option("--out", "-o", help="Report folder (created). Required.")
+    ] = None,
     regions: Annotated[
         str,
         typer.Option(
@@ -133,9 +135,9 @@ def evaluate_command(
         str, typer.Option("--method", help="Region method: recursive (one run) or kway.")
     ] = "recursive",
     limit: Annotated[
-        int | None, typer.Option("--limit", min=1, help="Score only the first N images.")
+        int | None, typer.Option("--limit", help="Score only the first N images.")
     ] = None,
-    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1, help="Worker processes.")] = 1,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", help="Worker processes.")] = 1,
     max_dist: Annotated[
         float,
         typer.Option("--max-dist", help="Boundary tolerance as a fraction of the diagonal."),
@@ -147,14 +149,20 @@ def evaluate_command(
 ) -> None:
     """Segment every image of a dataset folder and score it against the human ground truth.
 
-    Writes per_image.csv, summary.csv/.md (ODS, OIS, Best), a boundary precision-recall
-    plot, a histogram of per-image scores and overlays of the best and worst images.
+    Writes per_image.csv, summary.csv, summary.md, a precision-recall plot, a histogram
+    and overlays of the best and worst images into the --out folder.
     """
     from imgcut.evaluation import evaluate_dataset, write_report
     from imgcut.groundtruth import GroundTruthError, find_dataset
 
     name = "evaluate"
     try:
+        if out is None:
+            raise ValueError("--out REPORT_DIR is required (the folder for the report)")
+        if limit is not None and limit < 1:
+            raise ValueError(f"--limit must be >= 1, got {limit}")
+        if jobs < 1:
+            raise ValueError(f"--jobs must be >= 1, got {jobs}")
         counts = _parse_ints(regions, "--regions")
         ths = _parse_floats(iou, "--iou")
         if mode not in ("auto", "regions", "objects"):
