@@ -209,3 +209,13 @@ def test_segment_sweep_with_the_real_pipeline():
     levels = segment_sweep(img, (1, 2, 3))
     assert len(levels) == 3 and all(lab.shape == img.shape for lab in levels)
     assert [int(lab.max()) for lab in levels] == [1, 2, 3]
+
+
+def test_docstring_examples_run():
+    import doctest
+
+    import imgcut.evaluation as ev
+    import imgcut.groundtruth as gt
+
+    for mod in (ev, gt):
+        assert doctest.testmod(mod, optionflags=doctest.ELLIPSIS).failed == 0

@@ -44,3 +44,17 @@ def test_ragged_sweep_rejected():
         summarize_boundaries([[c, c], [c]])
     with pytest.raises(ValueError, match="no images"):
         summarize_regions([])
+
+
+@pytest.mark.parametrize(
+    "module",
+    ["region", "boundary", "instance", "aggregate", "_matching", "_labels"],
+)
+def test_docstring_examples_run(module):
+    # The numpydoc Examples of every metrics module run as doctests.
+    import doctest
+    import importlib
+
+    mod = importlib.import_module(f"imgcut.metrics.{module}")
+    result = doctest.testmod(mod, optionflags=doctest.ELLIPSIS)
+    assert result.failed == 0
