@@ -1,0 +1,968 @@
+"""Multiscale normalized-cut eigenvectors for megapixel images.
+
+One job: the smallest eigenpairs of a *multiscale* pixel graph at full resolution, without
+ever building a long-radius graph on all pixels.
+
+The multiscale graph follows Cour, Bénézit & Shi (CVPR 2005): level 0 is the full-resolution
+image with a short-radius affinity graph ``W_0``; level ``s`` is the image averaged over
+``2^s x 2^s`` blocks with its own graph ``W_s`` (short radius, the coarsest level a long one).
+The node values of level ``s + 1`` are tied to those of level ``s`` by averaging,
+``x_{s+1} = C_s x_s``. Substituting the ties into the normalized-cut Rayleigh quotient of the
+block-diagonal multiscale graph gives a generalised problem on the full-resolution pixels alone:
+
+    A y = lambda B y,
+    A = L_0 + C^T (L_1 + C^T (L_2 + ...) C) C,     L_s = D_s - W_s,
+    B = D_0 + C^T (D_1 + C^T (D_2 + ...) C) C.
+
+Long-range links come from the coarse levels, so each pixel carries only the few non-zeros of
+the short-radius ``W_0``. A variation with zero mean inside every block is invisible to the
+coarse terms (``C z = 0``), so boundaries inside a block are placed by the full-resolution
+graph alone, on real image edges.
+
+The solver is coarsen–solve–refine (nested iteration): the Galerkin projection of the pencil
+onto piecewise-constant functions of the coarsest level (prolongation ``P``, ``C P = I``) is an
+ordinary graph normalized cut, solved with :func:`imgcut.spectral.laplacian_eigenpairs`; its
+eigenvectors are prolonged one level at a time and refined by a few block LOBPCG iterations
+(Knyazev 2001) on that level's Galerkin pencil, ending on the full-resolution pencil.
+
+Public names: :func:`multiscale_eigenpairs`, :func:`prolongation`, :func:`restriction`,
+:func:`coarsen_features`, :func:`galerkin_graph`, :class:`MultiscaleProblem`,
+:func:`multiscale_problem`, :data:`AUTO_MULTISCALE_PIXELS`.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+import scipy.sparse as sp
+import scipy.sparse.csgraph as csgraph
+
+from imgcut._errors import EigenConvergenceWarning
+from imgcut.features import Features, compute_features
+from imgcut.graph import affinity_graph
+from imgcut.spectral import DENSE_MAX_NODES, Eigenpairs, laplacian_eigenpairs
+
+__all__ = [
+    "AUTO_MULTISCALE_PIXELS",
+    "MultiscaleProblem",
+    "coarsen_features",
+    "galerkin_graph",
+    "multiscale_eigenpairs",
+    "multiscale_problem",
+    "prolongation",
+    "restriction",
+]
+
+#: ``segment(scale="auto")`` switches to the multiscale path above this many pixels
+#: (a choice of this project: below it the single-scale radius-5 graph fits in well under
+#: 1 GB and solves in a few seconds).
+AUTO_MULTISCALE_PIXELS = 400_000
+
+# The coarsest level is the first one with at most this many pixels (auto levels).
+_COARSEST_PIXELS = 3_000
+_CUES = ("combined", "intensity", "contour")
+_PRECONDITIONERS = ("vcycle", "jacobi")
+# Extra LOBPCG columns beyond the wanted ones (guard vectors; common practice, they speed
+# up the convergence of the last wanted pairs and let new fine-level modes enter).
+_GUARD = 0
+# Shift of the preconditioned operator A + sigma B (B-relative, so the pencil's eigenvalues
+# near 0 are not amplified beyond 1/sigma); chosen by trials on 96x96 photographs.
+_PRECOND_SHIFT = 0.1
+_RESYNC = 1  # LOBPCG iterations between explicit recomputations of A X and B X
+_TRACE = None  # debugging hook: a list collects the residuals of every LOBPCG iteration
+
+
+# --------------------------------------------------------------------------- grid operators
+
+
+def _coarse_shape(shape: tuple[int, int]) -> tuple[int, int]:
+    return (shape[0] + 1) // 2, (shape[1] + 1) // 2
+
+
+def _check_grid_shape(shape) -> tuple[int, int]:
+    try:
+        h, w = (int(s) for s in shape)
+    except (TypeError, ValueError):
+        raise ValueError(f"shape must be (H, W) with sizes >= 1, got {shape!r}") from None
+    if h < 1 or w < 1:
+        raise ValueError(f"shape must be (H, W) with sizes >= 1, got {shape!r}")
+    return h, w
+
+
+def prolongation(shape, factor: int = 2) -> sp.csr_matrix:
+    """Piecewise-constant prolongation from a block grid to a pixel grid.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        Fine grid ``(H, W)``.
+    factor : int, default 2
+        Block side ``f`` (>= 1). Coarse node ``(I, J)`` is the block of pixels
+        ``f I <= y < f (I + 1)``, ``f J <= x < f (J + 1)``; blocks at the right and bottom
+        borders may be partial.
+
+    Returns
+    -------
+    P : scipy.sparse.csr_matrix, shape (H * W, Hc * Wc)
+        ``P[i, I] = 1`` when pixel ``i`` lies in block ``I`` (raster order on both grids,
+        ``Hc = ceil(H / f)``, ``Wc = ceil(W / f)``). ``P 1 = 1``: constants are preserved.
+
+    Raises
+    ------
+    ValueError
+        Bad shape or factor.
+
+    Notes
+    -----
+    With this ``P`` the Galerkin coarse graph ``P^T W P`` has the block sums of ``W`` as
+    weights and ``P^T D P`` as degrees (intra-block weight kept as self-loops), so the coarse
+    normalized-cut Rayleigh quotient of a coarse vector ``z`` equals the fine one of ``P z``
+    (Galerkin projection; see :func:`galerkin_graph`).
+
+    Examples
+    --------
+    >>> P = prolongation((3, 3), 2)
+    >>> P.shape
+    (9, 4)
+    >>> (P @ [1.0, 2.0, 3.0, 4.0]).reshape(3, 3)
+    array([[1., 1., 2.],
+           [1., 1., 2.],
+           [3., 3., 4.]])
+    """
+    h, w = _check_grid_shape(shape)
+    f = _check_factor(factor)
+    wc = -(-w // f)
+    rows = np.arange(h * w, dtype=np.int64)
+    blk = ((np.arange(h) // f)[:, None] * wc + (np.arange(w) // f)[None, :]).ravel()
+    nc = -(-h // f) * wc
+    return sp.csr_matrix((np.ones(h * w), (rows, blk)), shape=(h * w, nc))
+
+
+def restriction(shape, factor: int = 2) -> sp.csr_matrix:
+    """Averaging restriction ``C`` from a pixel grid to its block grid.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        Fine grid ``(H, W)``.
+    factor : int, default 2
+        Block side ``f`` (>= 1), as in :func:`prolongation`.
+
+    Returns
+    -------
+    C : scipy.sparse.csr_matrix, shape (Hc * Wc, H * W)
+        ``C[I, i] = 1 / |I|`` for the pixels ``i`` of block ``I``: block means. ``C 1 = 1``
+        (constants preserved) and ``C P = I``.
+
+    Raises
+    ------
+    ValueError
+        Bad shape or factor.
+
+    Notes
+    -----
+    ``C = (P^T P)^-1 P^T``, the left inverse of :func:`prolongation`; it is the cross-scale
+    averaging constraint of Cour, Bénézit & Shi (2005), ``x_{s+1} = C x_s``.
+
+    Examples
+    --------
+    >>> C = restriction((2, 4), 2)
+    >>> C @ [1.0, 3.0, 5.0, 7.0, 1.0, 3.0, 5.0, 7.0]
+    array([2., 6.])
+    """
+    P = prolongation(shape, factor)
+    counts = np.asarray(P.sum(axis=0)).ravel()
+    return sp.csr_matrix(sp.diags(1.0 / counts) @ P.T)
+
+
+def _check_factor(factor) -> int:
+    if isinstance(factor, bool) or not isinstance(factor, int | np.integer) or factor < 1:
+        raise ValueError(f"factor must be an integer >= 1, got {factor!r}")
+    return int(factor)
+
+
+class _Grid:
+    """Fast 2x2 block operators between a grid and its half-resolution grid."""
+
+    def __init__(self, shape: tuple[int, int]):
+        self.shape = shape
+        self.coarse = _coarse_shape(shape)
+        h, w = shape
+        hc, wc = self.coarse
+        cnt = np.full((hc, wc), 4.0)
+        if h % 2:
+            cnt[-1, :] /= 2
+        if w % 2:
+            cnt[:, -1] /= 2
+        self.counts = cnt.ravel()
+
+    def _pad(self, x: np.ndarray) -> np.ndarray:
+        h, w = self.shape
+        m = x.shape[1]
+        g = x.reshape(h, w, m)
+        if h % 2 or w % 2:
+            g2 = np.zeros((h + h % 2, w + w % 2, m))
+            g2[:h, :w] = g
+            g = g2
+        return g
+
+    def block_sum(self, x: np.ndarray) -> np.ndarray:
+        """``P^T x`` for ``x`` of shape (n, m)."""
+        g = self._pad(x)
+        hh, ww, m = g.shape
+        s = g.reshape(hh // 2, 2, ww // 2, 2, m).sum(axis=(1, 3))
+        return s.reshape(-1, m)
+
+    def average(self, x: np.ndarray) -> np.ndarray:
+        """``C x``: block means."""
+        return self.block_sum(x) / self.counts[:, None]
+
+    def expand(self, z: np.ndarray) -> np.ndarray:
+        """``P z``: copy every block value to its pixels."""
+        h, w = self.shape
+        hc, wc = self.coarse
+        m = z.shape[1]
+        g = z.reshape(hc, 1, wc, 1, m)
+        g = np.broadcast_to(g, (hc, 2, wc, 2, m)).reshape(2 * hc, 2 * wc, m)
+        return np.ascontiguousarray(g[:h, :w]).reshape(h * w, m)
+
+    def average_t(self, z: np.ndarray) -> np.ndarray:
+        """``C^T z``."""
+        return self.expand(z / self.counts[:, None])
+
+
+# --------------------------------------------------------------------------- features / graphs
+
+
+def coarsen_features(features: Features) -> Features:
+    """Features of the half-resolution image: 2x2 block means of the values, maxima of edges.
+
+    Parameters
+    ----------
+    features : Features
+        Full-resolution features ``(H, W, C)``.
+
+    Returns
+    -------
+    Features
+        ``(ceil(H/2), ceil(W/2), C)`` values (means over the pixels of each block) and the
+        block maxima of the edge map, so that a one-pixel-wide contour survives coarsening
+        for the intervening-contour cue.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from imgcut.features import compute_features
+    >>> f = coarsen_features(compute_features(np.arange(12.0).reshape(3, 4)))
+    >>> f.values.shape, f.edges.shape
+    ((2, 2, 1), (2, 2))
+    """
+    v = np.asarray(features.values, dtype=np.float64)
+    e = np.asarray(features.edges, dtype=np.float64)
+    h, w, c = v.shape
+    grid = _Grid((h, w))
+    hc, wc = grid.coarse
+    values = grid.average(v.reshape(h * w, c)).reshape(hc, wc, c)
+    ep = np.pad(e, ((0, h % 2), (0, w % 2)), mode="edge")
+    edges = ep.reshape(hc, 2, wc, 2).max(axis=(1, 3))
+    return Features(
+        values=values,
+        edges=np.ascontiguousarray(edges),
+        kind=features.kind,
+        low=features.low,
+        high=features.high,
+        percentiles=features.percentiles,
+        edge_scales=features.edge_scales,
+    )
+
+
+def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 20) -> sp.csr_matrix:
+    """Aggregate a pixel graph onto 2x2 blocks: ``P^T W P``.
+
+    Parameters
+    ----------
+    W : scipy.sparse matrix, shape (H * W, H * W)
+        Affinity graph on the pixels of ``shape`` (raster order, no mask).
+    shape : tuple of int
+        Grid ``(H, W)``.
+    chunk_rows : int, default 2**20
+        Rows aggregated at a time (bounds the temporary memory).
+
+    Returns
+    -------
+    scipy.sparse.csr_matrix, shape (Hc * Wc, Hc * Wc)
+        Block sums of ``W``; the diagonal holds the weight inside each block (self-loops),
+        so row sums are the block sums of the degrees, ``P^T d``.
+
+    Raises
+    ------
+    ValueError
+        When ``W`` does not match ``shape``.
+
+    Notes
+    -----
+    ``z^T P^T (D - W) P z = (P z)^T (D - W) (P z)`` and ``z^T P^T D P z = (P z)^T D (P z)``,
+    so the Rayleigh quotient of the aggregated graph at ``z`` equals the fine one at the
+    prolonged vector (Galerkin projection onto piecewise-constant functions).
+
+    Examples
+    --------
+    >>> import numpy as np, scipy.sparse as sp
+    >>> W = sp.csr_matrix(np.ones((4, 4)) - np.eye(4))   # K4 on a 2x2 grid
+    >>> galerkin_graph(W, (2, 2)).toarray()
+    array([[12.]])
+    """
+    h, w = _check_grid_shape(shape)
+    W = sp.csr_matrix(W)
+    if W.shape != (h * w, h * w):
+        raise ValueError(f"W must be ({h * w}, {h * w}) for a grid of shape {shape}; got {W.shape}")
+    P = prolongation((h, w), 2)
+    nc = P.shape[1]
+    out = sp.csr_matrix((nc, nc))
+    for r0 in range(0, h * w, chunk_rows):
+        r1 = min(h * w, r0 + chunk_rows)
+        part = P[r0:r1].T @ (W[r0:r1] @ P)
+        out = out + part
+    out.sum_duplicates()
+    out.sort_indices()
+    return sp.csr_matrix(out)
+
+
+# --------------------------------------------------------------------------- the problem
+
+
+@dataclass(eq=False)
+class _Level:
+    shape: tuple[int, int]
+    W_own: sp.csr_matrix | None  # the level's own graph W_s (None: no own graph)
+    G: sp.csr_matrix  # Galerkin graph of levels <= s (incl. W_s), self-loops on the diagonal
+    grid: _Grid | None  # operators to level s + 1 (None on the coarsest level)
+
+
+@dataclass(eq=False)
+class MultiscaleProblem:
+    """The multiscale normalized-cut pencil of an image, level by level.
+
+    Attributes
+    ----------
+    shapes : list of tuple
+        Grid shape of every level, full resolution first.
+    radii : list of float
+        Radius of each level's own graph.
+    sigmas : list of dict
+        σ values used by each level's own graph.
+    nnz : list of int
+        Stored entries of each level's own graph.
+    timings : dict
+        Seconds spent on features, graphs and aggregation.
+    """
+
+    shapes: list
+    radii: list
+    sigmas: list
+    nnz: list
+    timings: dict = field(default_factory=dict)
+    _levels: list = field(default_factory=list, repr=False)
+
+    @property
+    def n_levels(self) -> int:
+        """Number of levels (1 = single scale)."""
+        return len(self._levels)
+
+    # -- operators of the pencil on level s ---------------------------------------------
+    def _coarse_apply(self, s: int, z: np.ndarray, a: float, b: float) -> np.ndarray:
+        """``E_s z`` for ``a L + b D`` of the own graphs of levels >= s, tied by averaging."""
+        lev = self._levels[s]
+        W = lev.W_own
+        if W is None:
+            out = np.zeros_like(z)
+        else:
+            out = ((a + b) * self._own_deg[s])[:, None] * z
+            if a:
+                out -= a * (W @ z)
+        if lev.grid is not None:
+            out += lev.grid.average_t(self._coarse_apply(s + 1, lev.grid.average(z), a, b))
+        return out
+
+    def apply(self, s: int, x: np.ndarray, mass: bool = False, shift: float = 0.0) -> np.ndarray:
+        """``A_s x`` (``B_s x`` with ``mass=True``; ``A_s x + shift B_s x`` otherwise).
+
+        ``x`` has shape ``(n_s, m)``.
+        """
+        a, b = (0.0, 1.0) if mass else (1.0, float(shift))
+        lev = self._levels[s]
+        out = ((a + b) * self._deg[s])[:, None] * x
+        if a:
+            out -= a * (lev.G @ x)
+        if lev.grid is not None:
+            out += lev.grid.average_t(self._coarse_apply(s + 1, lev.grid.average(x), a, b))
+        return out
+
+    def _coarse_diag(self, s: int, mass: bool) -> np.ndarray:
+        lev = self._levels[s]
+        W = lev.W_own
+        n = lev.shape[0] * lev.shape[1]
+        out = np.zeros(n)
+        if W is not None:
+            out += self._own_deg[s]
+            if not mass:
+                out -= W.diagonal()
+        if lev.grid is not None:
+            out += lev.grid.expand(
+                (self._coarse_diag(s + 1, mass) / lev.grid.counts**2)[:, None]
+            ).ravel()
+        return out
+
+    def diagonal(self, s: int, mass: bool = False) -> np.ndarray:
+        """Diagonal of ``A_s`` (or ``B_s``)."""
+        lev = self._levels[s]
+        out = self._deg[s].copy()
+        if not mass:
+            out -= lev.G.diagonal()
+        if lev.grid is not None:
+            out += lev.grid.expand(
+                (self._coarse_diag(s + 1, mass) / lev.grid.counts**2)[:, None]
+            ).ravel()
+        return out
+
+    def _coarse_l1(self, s: int, sigma: float) -> np.ndarray:
+        lev = self._levels[s]
+        n = lev.shape[0] * lev.shape[1]
+        out = np.zeros(n) if lev.W_own is None else (2.0 + sigma) * self._own_deg[s]
+        if lev.grid is not None:
+            out += lev.grid.average_t(self._coarse_l1(s + 1, sigma)[:, None]).ravel()
+        return out
+
+    def l1_diagonal(self, s: int, sigma: float = 0.0) -> np.ndarray:
+        """Upper bound of the absolute row sums of ``A_s + sigma B_s`` (l1-Jacobi diagonal).
+
+        ``diag(A)^-1`` is a poor smoother here: the coarse terms ``C^T E C`` couple whole
+        blocks, so ``lambda_max(diag(A)^-1 A)`` grows like 4 per level. This diagonal
+        (``|L_0| 1`` plus ``C^T`` of the coarse levels' ``|L_s| 1``, by the triangle
+        inequality at least the absolute row sum) bounds every row, so
+        ``l1^-1 (A + sigma B)`` has spectrum in ``(0, 1]`` and the
+        smoother converges (Baker, Falgout, Kolev & Yang, SIAM J. Sci. Comput. 33(5), 2011).
+        """
+        lev = self._levels[s]
+        out = (2.0 + sigma) * self._deg[s] - 2.0 * lev.G.diagonal()
+        if lev.grid is not None:
+            out += lev.grid.average_t(self._coarse_l1(s + 1, sigma)[:, None]).ravel()
+        return out
+
+    def __post_init__(self):
+        self._deg = []
+
+    def _finish(self):
+        self._deg = [np.asarray(lv.G.sum(axis=1)).ravel() for lv in self._levels]
+        self._own_deg = [
+            None if lv.W_own is None else np.asarray(lv.W_own.sum(axis=1)).ravel()
+            for lv in self._levels
+        ]
+
+
+def _auto_levels(shape: tuple[int, int], coarsest_pixels: int) -> int:
+    levels = 1
+    h, w = shape
+    while h * w > coarsest_pixels and min(h, w) >= 8:
+        h, w = _coarse_shape((h, w))
+        levels += 1
+    return levels
+
+
+def multiscale_problem(
+    image,
+    *,
+    levels: int | str = "auto",
+    radius_fine: float = 1.5,
+    radius_coarse: float = 5.0,
+    cue: str = "combined",
+    sigma_feature: float | None = None,
+    sigma_edge: float | None = None,
+    coarsest_pixels: int = _COARSEST_PIXELS,
+) -> MultiscaleProblem:
+    """Build the graphs and operators of the multiscale pencil ``A y = lambda B y``.
+
+    Parameters
+    ----------
+    image : array_like or Features
+        Image (see :func:`imgcut.features.compute_features`) or precomputed features.
+    levels : int or "auto", default "auto"
+        Number of levels including full resolution (>= 1). "auto": halve until the coarsest
+        level has at most ``coarsest_pixels`` pixels.
+    radius_fine : float, default 1.5
+        Radius of the own graph of every level but the coarsest (1.5: 8 neighbours).
+    radius_coarse : float, default 5
+        Radius of the coarsest level's graph, which carries the long-range links.
+    cue : {"combined", "intensity", "contour"}, default "combined"
+        Affinity cue of every level (see :func:`imgcut.graph.affinity_graph`).
+    sigma_feature, sigma_edge : float, optional
+        Fixed σ_F, σ_E for every level; None derives them per level from its features.
+    coarsest_pixels : int, default 3000
+        Target size of the coarsest level with ``levels="auto"``.
+
+    Returns
+    -------
+    MultiscaleProblem
+
+    Raises
+    ------
+    ValueError
+        Bad option values (listing the valid ones).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> prob = multiscale_problem(np.random.default_rng(0).random((40, 40)), levels=3)
+    >>> prob.shapes
+    [(40, 40), (20, 20), (10, 10)]
+    """
+    if cue not in _CUES:
+        raise ValueError(f"cue must be one of {_CUES}, got {cue!r}")
+    timings: dict[str, float] = {}
+    t = time.perf_counter()
+    feats = image if isinstance(image, Features) else compute_features(image)
+    timings["features"] = time.perf_counter() - t
+    shape = feats.shape
+    if levels == "auto":
+        n_levels = _auto_levels(shape, int(coarsest_pixels))
+    else:
+        if isinstance(levels, bool) or not isinstance(levels, int | np.integer) or levels < 1:
+            raise ValueError(f"levels must be 'auto' or an integer >= 1, got {levels!r}")
+        n_levels = int(levels)
+    for name, r in (("radius_fine", radius_fine), ("radius_coarse", radius_coarse)):
+        number = isinstance(r, int | float | np.integer | np.floating)
+        if not (number and math.isfinite(r) and r >= 1):
+            raise ValueError(f"{name} must be a finite number >= 1 (pixels), got {r!r}")
+
+    t_graph = 0.0
+    t_agg = 0.0
+    feats_s = feats
+    shapes, radii, sigmas, nnz = [], [], [], []
+    levels_out: list[_Level] = []
+    G_prev = None
+    for s in range(n_levels):
+        if s > 0:
+            feats_s = coarsen_features(feats_s)
+        shp = feats_s.shape
+        last = s == n_levels - 1
+        r = float(radius_coarse if last else radius_fine)
+        t0 = time.perf_counter()
+        g = affinity_graph(
+            feats_s,
+            radius=r,
+            cue=cue,
+            sigma_feature=sigma_feature,
+            sigma_edge=sigma_edge,
+            memory_budget=None,
+        )
+        t_graph += time.perf_counter() - t0
+        W_s = g.weights
+        t0 = time.perf_counter()
+        if G_prev is None:
+            G = W_s
+        else:
+            G = galerkin_graph(G_prev, shapes[-1]) + W_s
+            G = sp.csr_matrix(G)
+        t_agg += time.perf_counter() - t0
+        if levels_out:
+            levels_out[-1].grid = _Grid(shapes[-1])
+        # Level 0's G is W_0 itself; keep one reference only.
+        levels_out.append(_Level(shp, None if s == 0 else W_s, G, None))
+        shapes.append(shp)
+        radii.append(r)
+        sigmas.append(dict(g.sigmas))
+        nnz.append(int(W_s.nnz))
+        G_prev = G
+    # Level 0: its own graph is G itself (A_0 = L(W_0) + C^T E_1 C); the own graphs of the
+    # levels >= 1 enter the finer pencils through E; G_s (s >= 1) includes W_s already.
+    timings["graphs"] = t_graph
+    timings["aggregate"] = t_agg
+    prob = MultiscaleProblem(shapes=shapes, radii=radii, sigmas=sigmas, nnz=nnz, timings=timings)
+    prob._levels = levels_out
+    prob._finish()
+    return prob
+
+
+# --------------------------------------------------------------------------- refinement
+
+
+def _b_orthonormalize(X, BX):
+    G = X.T @ BX
+    G = (G + G.T) / 2
+    try:
+        Lc = np.linalg.cholesky(G)
+    except np.linalg.LinAlgError:
+        w, V = np.linalg.eigh(G)
+        keep = w > w.max() * 1e-12
+        T = V[:, keep] / np.sqrt(w[keep])
+        return X @ T, BX @ T
+    Ti = scipy.linalg.solve_triangular(Lc, np.eye(G.shape[0]), lower=True).T
+    return X @ Ti, BX @ Ti
+
+
+class _VCycle:
+    """One multigrid V-cycle for ``(A_s + sigma B_s) e = r`` on the level hierarchy.
+
+    The level pencils are Galerkin projections of each other (``P^T A_s P = A_{s+1}``), so
+    this is aggregation multigrid with the hierarchy the multiscale graph already has:
+    damped Jacobi smoothing (one pre-, one post-step), piecewise-constant transfer, and one
+    smoothed-aggregation cycle (pyamg) on the explicit sparse coarsest pencil.
+    """
+
+    def __init__(self, prob: MultiscaleProblem, sigma: float, rng: np.random.Generator):
+        import pyamg
+
+        self.prob = prob
+        self.sigma = sigma
+        S = prob.n_levels - 1
+        self.inv_diag = [
+            None if s == S else 1.0 / prob.l1_diagonal(s, sigma) for s in range(S + 1)
+        ]
+        G = prob._levels[S].G
+        d = prob._deg[S]
+        M = sp.csr_matrix(sp.diags((1.0 + sigma) * d) - G)
+        state = np.random.get_state()  # noqa: NPY002 (pyamg reads the legacy state)
+        np.random.seed(int(rng.integers(2**31 - 1)))  # noqa: NPY002
+        try:
+            self.ml = pyamg.smoothed_aggregation_solver(M, max_coarse=500)
+        finally:
+            np.random.set_state(state)  # noqa: NPY002
+        self.S = S
+        self.pre = 1  # smoothing steps before and after the coarse correction
+        self.gamma = 1  # coarse corrections per level (1: V-cycle, 2: W-cycle)
+
+    def __call__(self, s: int, r: np.ndarray) -> np.ndarray:
+        if s == self.S:
+            return np.column_stack(
+                [self.ml.solve(r[:, j], maxiter=1, cycle="V", tol=1e-30) for j in range(r.shape[1])]
+            )
+        omega = 1.0  # l1-Jacobi needs no damping (Baker et al. 2011)
+        dinv = self.inv_diag[s][:, None]
+        grid = self.prob._levels[s].grid
+        e = omega * dinv * r
+        for _ in range(self.pre - 1):
+            e += omega * dinv * (r - self.prob.apply(s, e, shift=self.sigma))
+        for _ in range(self.gamma):  # gamma = 2: W-cycle
+            res = r - self.prob.apply(s, e, shift=self.sigma)
+            e += grid.expand(self(s + 1, grid.block_sum(res)))
+        for _ in range(self.pre):
+            e += omega * dinv * (r - self.prob.apply(s, e, shift=self.sigma))
+        return e
+
+
+def _refine(
+    prob: MultiscaleProblem,
+    s: int,
+    X: np.ndarray,
+    tol: float,
+    maxiter: int,
+    precond=None,
+    n_wanted: int | None = None,
+):
+    """Block LOBPCG (Knyazev 2001) on level s with Jacobi preconditioning.
+
+    The constant vector (eigenvalue 0) is deflated in the B inner product. Returns
+    (values, X, residuals, iterations).
+    """
+    n, m = X.shape
+    A = lambda V: prob.apply(s, V)  # noqa: E731
+    B = lambda V: prob.apply(s, V, mass=True)  # noqa: E731
+    dA = prob.l1_diagonal(s)
+    dB = prob.diagonal(s, mass=True)
+    inv_dA = 1.0 / np.maximum(dA, 1e-300)
+    sq_dB = np.sqrt(dB)
+    one = np.ones((n, 1))
+    B1 = B(one)
+    n1 = float(one[:, 0] @ B1[:, 0])
+
+    def deflate(V):
+        return V - one @ ((B1.T @ V) / n1)
+
+    X = deflate(X)
+    BX = B(X)
+    X, BX = _b_orthonormalize(X, BX)
+    AX = A(X)
+    H = X.T @ AX
+    lam, Z = np.linalg.eigh((H + H.T) / 2)
+    X, AX, BX = X @ Z, AX @ Z, BX @ Z
+    P = AP = BP = None
+    it = 0
+    res = np.full(m, np.inf)
+    while True:
+        R = AX - BX * lam
+        num = np.linalg.norm(R / sq_dB[:, None], axis=0)
+        den = np.linalg.norm(X * sq_dB[:, None], axis=0)
+        res = num / den
+        if n_wanted is not None:
+            res = res[:n_wanted]
+        if _TRACE is not None:
+            _TRACE.append(res.copy())
+        if np.all(res <= tol) or it >= maxiter:
+            break
+        it += 1
+        Wt = deflate(R * inv_dA[:, None] if precond is None else precond(s, R))
+        BW = B(Wt)
+        Wt, BW = _b_orthonormalize(Wt, BW)
+        AW = A(Wt)
+        blocks = [(X, AX, BX), (Wt, AW, BW)]
+        if P is not None:
+            blocks.append((P, AP, BP))
+        S = [b[0] for b in blocks]
+        AS = [b[1] for b in blocks]
+        BS = [b[2] for b in blocks]
+        GA = np.block([[Si.T @ ASj for ASj in AS] for Si in S])
+        GB = np.block([[Si.T @ BSj for BSj in BS] for Si in S])
+        GA = (GA + GA.T) / 2
+        GB = (GB + GB.T) / 2
+        # Rayleigh-Ritz in a B-orthonormal basis of span[X, W, P]; directions that became
+        # linearly dependent (tiny eigenvalues of the Gram matrix) are dropped.
+        gw, gv = np.linalg.eigh(GB)
+        keep = gw > 1e-12 * gw.max()
+        T = gv[:, keep] / np.sqrt(gw[keep])
+        vals, Zr = np.linalg.eigh(T.T @ GA @ T)
+        Z = T @ Zr
+        Z = Z[:, :m]
+        lam = vals[:m]
+        sizes = [b.shape[1] for b in S]
+        offs = np.cumsum([0] + sizes)
+        Zs = [Z[offs[i] : offs[i + 1]] for i in range(len(S))]
+        P = sum(S[i] @ Zs[i] for i in range(1, len(S)))
+        AP = sum(AS[i] @ Zs[i] for i in range(1, len(S)))
+        BP = sum(BS[i] @ Zs[i] for i in range(1, len(S)))
+        X = X @ Zs[0] + P
+        if it % _RESYNC == 0:
+            # Recompute the products and re-orthonormalise: the implicit updates drift and
+            # LOBPCG stagnates when X loses B-orthonormality (Knyazev 2001, sec. 5).
+            BX = B(X)
+            X, BX = _b_orthonormalize(X, BX)
+            AX = A(X)
+            H = X.T @ AX
+            lam, Zh = np.linalg.eigh((H + H.T) / 2)
+            X, AX, BX = X @ Zh, AX @ Zh, BX @ Zh
+        else:
+            AX = AX @ Zs[0] + AP
+            BX = BX @ Zs[0] + BP
+        del S, AS, BS, Wt, AW, BW
+    return lam, X, res, it
+
+
+def _fix_signs(Y: np.ndarray) -> np.ndarray:
+    idx = np.argmax(np.abs(Y), axis=0)
+    signs = np.sign(Y[idx, np.arange(Y.shape[1])])
+    signs[signs == 0] = 1.0
+    return Y * signs
+
+
+def multiscale_eigenpairs(
+    image,
+    k: int,
+    *,
+    levels: int | str = "auto",
+    radius_fine: float = 1.5,
+    radius_coarse: float = 5.0,
+    cue: str = "combined",
+    sigma_feature: float | None = None,
+    sigma_edge: float | None = None,
+    tol: float = 1e-5,
+    maxiter: int | None = None,
+    level_maxiter: int = 6,
+    seed=None,
+    coarsest_pixels: int = _COARSEST_PIXELS,
+    preconditioner: str = "vcycle",
+    problem: MultiscaleProblem | None = None,
+) -> Eigenpairs:
+    """Smallest eigenpairs of the multiscale normalized-cut pencil at full resolution.
+
+    Parameters
+    ----------
+    image : array_like or Features
+        ``(H, W)`` or ``(H, W, C)`` image, or its features (no mask).
+    k : int
+        Eigenpairs wanted (>= 1), the constant vector (eigenvalue 0) included.
+    levels, radius_fine, radius_coarse, cue, sigma_feature, sigma_edge, coarsest_pixels
+        Graph hierarchy, see :func:`multiscale_problem`.
+    tol : float, default 1e-5
+        Residual tolerance on the full-resolution pencil (see Returns).
+    maxiter : int, optional
+        LOBPCG iterations allowed on the full-resolution level (default 60).
+    level_maxiter : int, default 6
+        LOBPCG iterations on each intermediate level (they only improve the start).
+    seed : None, int or numpy.random.Generator
+        Seeds the coarsest eigensolve and the multigrid setup.
+    preconditioner : {"vcycle", "jacobi"}, default "vcycle"
+        LOBPCG preconditioner: one multigrid V-cycle for ``A + 0.1 B`` on the level
+        hierarchy (l1-Jacobi smoothing, pyamg on the coarsest level), or l1-Jacobi alone.
+    problem : MultiscaleProblem, optional
+        A prebuilt problem from :func:`multiscale_problem`; ``image`` is then ignored
+        (pass None).
+
+    Returns
+    -------
+    Eigenpairs
+        ``values`` ascending; ``vectors`` (H*W, k) with ``y^T B y = 1``, signs fixed;
+        ``residuals`` ``||D^-1/2 (A y - lambda B y)|| / ||D^1/2 y||`` with ``D = diag(B)``,
+        which is the contract's ``||L v - lambda v|| / ||v||`` when ``B`` is diagonal;
+        ``solver="multiscale"``; ``info`` holds the level shapes, the coarse eigenvalues
+        (upper bounds of the fine ones), per-level iterations and residuals.
+
+    Raises
+    ------
+    ValueError
+        Bad options.
+
+    Warns
+    -----
+    EigenConvergenceWarning
+        When a full-resolution residual stays above ``tol``.
+
+    Notes
+    -----
+    The pencil ``(A, B)`` is the normalized cut of the multiscale graph of Cour, Bénézit &
+    Shi (2005) with its cross-scale averaging constraints eliminated (module docstring).
+    ``A 1 = 0``, so the constant is the eigenvector of eigenvalue 0 and is deflated exactly.
+    For ``s > 0`` the level-``s`` pencil is the Galerkin projection ``P^T A P, P^T B P``
+    onto functions constant on the level's blocks, so by the Courant–Fischer min-max
+    theorem its eigenvalues are upper bounds of the full-resolution ones
+    (Rayleigh–Ritz; Parlett, *The Symmetric Eigenvalue Problem*, 1998, thm 11.4.1 / Cauchy
+    interlacing). The coarsest pencil has diagonal ``B`` and is solved by
+    :func:`imgcut.spectral.laplacian_eigenpairs`; its vectors are prolonged one level at a
+    time and refined with block LOBPCG (Knyazev 2001) preconditioned by ``diag(A)^-1``
+    (nested iteration).
+
+    References
+    ----------
+    T. Cour, F. Bénézit, J. Shi, "Spectral segmentation with multiscale graph
+    decomposition", CVPR 2005.
+    A. V. Knyazev, "Toward the optimal preconditioned eigensolver: LOBPCG", SIAM J. Sci.
+    Comput. 23(2), 2001.
+    J. Shi, J. Malik, "Normalized cuts and image segmentation", IEEE TPAMI 22(8), 2000.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> img = np.zeros((64, 64))
+    >>> img[:, 32:] = 1.0
+    >>> ep = multiscale_eigenpairs(img, 2, levels=3, seed=0)
+    >>> ep.vectors.shape, bool(ep.converged)
+    ((4096, 2), True)
+    >>> y = ep.vectors[:, 1].reshape(64, 64)
+    >>> bool(np.all(np.sign(y[:, :32]) == -np.sign(y[:, 32:])))
+    True
+    """
+    t_start = time.perf_counter()
+    if isinstance(k, bool) or not isinstance(k, int | np.integer) or k < 1:
+        raise ValueError(f"k must be a positive integer; got {k!r}")
+    if not (isinstance(tol, int | float | np.floating) and np.isfinite(tol) and tol > 0):
+        raise ValueError(f"tol must be a positive finite number; got {tol!r}")
+    if maxiter is not None and (
+        isinstance(maxiter, bool) or not isinstance(maxiter, int | np.integer) or maxiter < 1
+    ):
+        raise ValueError(f"maxiter must be None or a positive integer; got {maxiter!r}")
+    if preconditioner not in _PRECONDITIONERS:
+        raise ValueError(
+            f"unknown preconditioner {preconditioner!r}; valid: {', '.join(_PRECONDITIONERS)}"
+        )
+    rng = np.random.default_rng(seed)
+    if problem is None:
+        problem = multiscale_problem(
+            image,
+            levels=levels,
+            radius_fine=radius_fine,
+            radius_coarse=radius_coarse,
+            cue=cue,
+            sigma_feature=sigma_feature,
+            sigma_edge=sigma_edge,
+            coarsest_pixels=coarsest_pixels,
+        )
+    timings = dict(problem.timings)
+    S = problem.n_levels - 1
+    n0 = problem.shapes[0][0] * problem.shapes[0][1]
+    k = int(min(k, n0))
+    info: dict = {"shapes": [list(s) for s in problem.shapes], "radii": list(problem.radii)}
+
+    t0 = time.perf_counter()
+    Gs = problem._levels[S].G
+    nS = Gs.shape[0]
+    coarse_solver = "dense" if nS <= DENSE_MAX_NODES else "auto"
+    coarse = laplacian_eigenpairs(
+        Gs, min(k + _GUARD, nS), solver=coarse_solver, tol=min(tol, 1e-6), seed=rng
+    )
+    timings["coarse_solve"] = time.perf_counter() - t0
+    info["coarse_values"] = coarse.values.tolist()
+    if S == 0:
+        timings["total"] = time.perf_counter() - t_start
+        return Eigenpairs(
+            values=coarse.values,
+            vectors=coarse.vectors,
+            residuals=coarse.residuals,
+            solver=f"single-scale ({coarse.solver})",
+            iterations=coarse.iterations,
+            n_components=coarse.n_components,
+            component_labels=coarse.component_labels,
+            tol=float(tol),
+            converged=coarse.converged,
+            timings=timings,
+            info=info,
+        )
+    n_comp, _ = csgraph.connected_components(Gs, directed=False)
+    # Non-trivial vectors: drop the constant (eigenvalue 0) of a connected coarse graph.
+    Y = coarse.vectors[:, 1:] if n_comp == 1 else coarse.vectors
+    m = k - 1 if n_comp == 1 else k
+    if Y.shape[1] < m:  # coarse grid smaller than k: fill with random columns
+        Y = np.hstack([Y, rng.standard_normal((nS, m - Y.shape[1]))])
+    t0 = time.perf_counter()
+    precond = _VCycle(problem, _PRECOND_SHIFT, rng) if preconditioner == "vcycle" else None
+    timings["precond_setup"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    iters = []
+    level_res = []
+    X = Y
+    for s in range(S - 1, -1, -1):
+        X = problem._levels[s].grid.expand(X)
+        final = s == 0
+        it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
+        lam, X, res, it = _refine(problem, s, X, tol, it_max, precond, n_wanted=m)
+        iters.append(it)
+        level_res.append(float(res.max()) if res.size else 0.0)
+    timings["refine"] = time.perf_counter() - t0
+    lam, X = lam[:m], X[:, :m]
+    info["level_iterations"] = iters[::-1]
+    info["level_max_residual"] = level_res[::-1]
+
+    if m < k:  # prepend the constant vector, B-normalised
+        one = np.ones((n0, 1))
+        b = float(problem.apply(0, one, mass=True)[:, 0].sum())
+        X = np.hstack([one / math.sqrt(b), X])
+        lam = np.concatenate([[0.0], lam])
+        res = np.concatenate([[0.0], res])
+    order = np.argsort(lam, kind="stable")
+    lam, X, res = lam[order], X[:, order], res[order]
+    X = _fix_signs(X)
+    converged = bool(np.all(res <= tol))
+    if not converged:
+        warnings.warn(
+            f"{int((res > tol).sum())} of {k} multiscale eigenpairs have residuals above "
+            f"tol={tol:g} (largest {res.max():.2e}) after {iters[-1]} full-resolution LOBPCG "
+            "iterations; raise maxiter, loosen tol, or add a level",
+            EigenConvergenceWarning,
+            stacklevel=2,
+        )
+    timings["total"] = time.perf_counter() - t_start
+    return Eigenpairs(
+        values=np.asarray(lam, dtype=np.float64),
+        vectors=X,
+        residuals=np.asarray(res, dtype=np.float64),
+        solver="multiscale",
+        iterations=int(sum(iters)),
+        n_components=int(n_comp),
+        component_labels=np.zeros(n0, dtype=np.int64),
+        tol=float(tol),
+        converged=converged,
+        timings=timings,
+        info=info,
+    )

@@ -1,0 +1,230 @@
+"""Tests for imgcut/multiscale.py: grid transfer operators, the Galerkin hierarchy, the
+multiscale pencil's eigenpairs and recovery of known regions."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+import scipy.linalg
+import scipy.sparse as sp
+
+from imgcut.features import compute_features
+from imgcut.graph import affinity_graph
+from imgcut.multiscale import (
+    coarsen_features,
+    galerkin_graph,
+    multiscale_eigenpairs,
+    multiscale_problem,
+    prolongation,
+    restriction,
+)
+from imgcut.partition import kway_ncut
+
+
+def _image(h, w, seed=0):
+    rng = np.random.default_rng(seed)
+    img = np.zeros((h, w))
+    img[:, w // 2 :] = 1.0
+    img[: h // 3] += 0.5
+    return img + 0.05 * rng.standard_normal((h, w))
+
+
+def _dense_pencil(prob, s=0):
+    n = prob.shapes[s][0] * prob.shapes[s][1]
+    eye = np.eye(n)
+    return prob.apply(s, eye), prob.apply(s, eye, mass=True)
+
+
+# --------------------------------------------------------------------------- operators
+
+
+@pytest.mark.parametrize("shape", [(4, 6), (5, 7), (1, 9), (3, 3)])
+@pytest.mark.parametrize("factor", [1, 2, 3])
+def test_prolongation_restriction_preserve_constants(shape, factor):
+    P = prolongation(shape, factor)
+    C = restriction(shape, factor)
+    nc = P.shape[1]
+    np.testing.assert_allclose(P @ np.full(nc, 3.5), 3.5)  # P 1 = 1
+    np.testing.assert_allclose(C @ np.full(P.shape[0], -2.0), -2.0)  # C 1 = 1
+    np.testing.assert_allclose((C @ P).toarray(), np.eye(nc), atol=1e-15)  # C P = I
+    # every pixel belongs to exactly one block
+    np.testing.assert_array_equal(np.asarray(P.sum(axis=1)).ravel(), 1.0)
+
+
+def test_restriction_is_block_mean():
+    x = np.arange(20.0).reshape(4, 5)
+    got = (restriction((4, 5), 2) @ x.ravel()).reshape(2, 3)
+    # independent: block means by explicit slicing (partial last column)
+    want = np.array(
+        [[x[i : i + 2, j : j + 2].mean() for j in range(0, 5, 2)] for i in range(0, 4, 2)]
+    )
+    np.testing.assert_allclose(got, want)
+
+
+def test_galerkin_graph_preserves_degrees_and_quotient():
+    img = _image(9, 11)
+    W = affinity_graph(img, radius=2).weights
+    Gc = galerkin_graph(W, (9, 11))
+    P = prolongation((9, 11), 2)
+    np.testing.assert_allclose((Gc - P.T @ W @ P).toarray(), 0, atol=1e-12)
+    # row sums of the coarse graph are the block sums of the fine degrees (P^T d)
+    d = np.asarray(W.sum(axis=1)).ravel()
+    np.testing.assert_allclose(np.asarray(Gc.sum(axis=1)).ravel(), P.T @ d, rtol=1e-12)
+    # Rayleigh quotient of z on the coarse graph = that of P z on the fine graph
+    z = np.random.default_rng(1).standard_normal(Gc.shape[0])
+    dc = np.asarray(Gc.sum(axis=1)).ravel()
+    q_c = (z @ (dc * z) - z @ (Gc @ z)) / (z @ (dc * z))
+    y = P @ z
+    q_f = (y @ (d * y) - y @ (W @ y)) / (y @ (d * y))
+    assert q_c == pytest.approx(q_f, rel=1e-12)
+
+
+def test_galerkin_graph_rejects_wrong_shape():
+    with pytest.raises(ValueError, match="grid of shape"):
+        galerkin_graph(sp.identity(6, format="csr"), (2, 2))
+
+
+def test_coarsen_features_keeps_thin_edges():
+    img = np.zeros((8, 8))
+    img[:, 3] = 1.0  # a one-pixel line
+    f = compute_features(img)
+    c = coarsen_features(f)
+    assert c.values.shape == (4, 4, 1)
+    v = f.values[..., 0]
+    np.testing.assert_allclose(c.values[..., 0], v.reshape(4, 2, 4, 2).mean(axis=(1, 3)))
+    assert c.edges.max() == pytest.approx(f.edges.max())  # block maxima
+
+
+def test_bad_options():
+    with pytest.raises(ValueError, match="factor"):
+        prolongation((4, 4), 0)
+    with pytest.raises(ValueError, match="shape"):
+        prolongation((0, 4), 2)
+    with pytest.raises(ValueError, match="levels"):
+        multiscale_problem(_image(8, 8), levels=0)
+    with pytest.raises(ValueError, match="cue"):
+        multiscale_problem(_image(8, 8), cue="colour")
+    with pytest.raises(ValueError, match="radius_fine"):
+        multiscale_problem(_image(8, 8), radius_fine=0.5)
+    with pytest.raises(ValueError, match="preconditioner"):
+        multiscale_eigenpairs(_image(8, 8), 2, preconditioner="ilu")
+    with pytest.raises(ValueError, match="k must"):
+        multiscale_eigenpairs(_image(8, 8), 0)
+
+
+# --------------------------------------------------------------------------- the pencil
+
+
+def test_pencil_is_symmetric_psd_with_constant_null_vector():
+    prob = multiscale_problem(_image(12, 10), levels=3)
+    A, B = _dense_pencil(prob)
+    np.testing.assert_allclose(A, A.T, atol=1e-12)
+    np.testing.assert_allclose(B, B.T, atol=1e-12)
+    np.testing.assert_allclose(A @ np.ones(A.shape[0]), 0, atol=1e-10)
+    assert np.linalg.eigvalsh(B).min() > 0
+    # generalised eigenvalues in [0, 2] like any normalized Laplacian (Chung 1997, sec. 1.2)
+    lam = scipy.linalg.eigh(A, B, eigvals_only=True)
+    assert lam.min() > -1e-10 and lam.max() < 2 + 1e-10
+
+
+def test_levels_are_galerkin_projections_and_bound_the_fine_spectrum():
+    prob = multiscale_problem(_image(16, 14), levels=3)
+    A0, B0 = _dense_pencil(prob, 0)
+    fine = scipy.linalg.eigh(A0, B0, eigvals_only=True)
+    for s in (1, 2):
+        P = prolongation(prob.shapes[0], 2)
+        for t in range(1, s):
+            P = P @ prolongation(prob.shapes[t], 2)
+        P = P.toarray()
+        As, Bs = _dense_pencil(prob, s)
+        np.testing.assert_allclose(P.T @ A0 @ P, As, atol=1e-10 * np.abs(As).max())
+        np.testing.assert_allclose(P.T @ B0 @ P, Bs, atol=1e-10 * np.abs(Bs).max())
+        coarse = scipy.linalg.eigh(As, Bs, eigvals_only=True)
+        # Courant-Fischer min-max (Rayleigh-Ritz on range(P)): the j-th Ritz value is an
+        # upper bound of the j-th eigenvalue, mu_j >= lambda_j (Parlett 1998, thm 11.4.1;
+        # Cauchy interlacing for the B-orthonormalised projection).
+        assert np.all(coarse >= fine[: coarse.size] - 1e-10)
+
+
+def test_coarse_level_diagonals_and_l1_bound():
+    prob = multiscale_problem(_image(10, 12), levels=3)
+    A, B = _dense_pencil(prob)
+    np.testing.assert_allclose(prob.diagonal(0), np.diag(A), rtol=1e-12)
+    np.testing.assert_allclose(prob.diagonal(0, mass=True), np.diag(B), rtol=1e-12)
+    M = A + 0.1 * B
+    l1 = prob.l1_diagonal(0, 0.1)
+    # an upper bound of the absolute row sums, hence (Gershgorin's circle theorem) the
+    # spectrum of l1^-1 M lies in (0, 1] and the l1-Jacobi smoother converges
+    assert np.all(l1 >= np.abs(M).sum(axis=1) * (1 - 1e-12))
+    s = 1 / np.sqrt(l1)
+    top = np.linalg.eigvalsh(s[:, None] * M * s[None, :]).max()
+    assert top <= 1 + 1e-12
+
+
+def test_eigenpairs_match_dense_reference_and_reach_tol():
+    img = _image(24, 20)
+    prob = multiscale_problem(img, levels=3)
+    A, B = _dense_pencil(prob)
+    ref = scipy.linalg.eigh(A, B, eigvals_only=True, subset_by_index=[0, 3])
+    ep = multiscale_eigenpairs(None, 4, problem=prob, tol=1e-6, maxiter=500, seed=0)
+    assert ep.converged and np.all(ep.residuals <= 1e-6)
+    # the eigenvalues agree with LAPACK's generalised eigh (scipy.linalg.eigh) on (A, B)
+    np.testing.assert_allclose(ep.values, ref, atol=1e-8)
+    # residual computed independently: ||D^-1/2 (A y - lam B y)|| / ||D^1/2 y||, D = diag(B)
+    dB = np.diag(B)
+    for j in range(4):
+        y = ep.vectors[:, j]
+        r = np.linalg.norm((A @ y - ep.values[j] * (B @ y)) / np.sqrt(dB))
+        assert r / np.linalg.norm(np.sqrt(dB) * y) <= 1e-6
+    # B-orthonormal
+    np.testing.assert_allclose(ep.vectors.T @ B @ ep.vectors, np.eye(4), atol=1e-8)
+
+
+def test_deterministic_and_warns_when_maxiter_too_small():
+    img = _image(32, 32)
+    a = multiscale_eigenpairs(img, 3, levels=3, seed=3, tol=1e-9, maxiter=2)
+    with pytest.warns(Warning, match="residuals above"):
+        b = multiscale_eigenpairs(img, 3, levels=3, seed=3, tol=1e-9, maxiter=2)
+    np.testing.assert_array_equal(a.vectors, b.vectors)
+
+
+def test_single_level_is_the_plain_graph():
+    img = _image(12, 12)
+    ep = multiscale_eigenpairs(img, 3, levels=1, radius_coarse=3, seed=0)
+    from imgcut.spectral import laplacian_eigenpairs
+
+    ref = laplacian_eigenpairs(affinity_graph(img, radius=3).weights, 3, solver="dense")
+    np.testing.assert_allclose(ep.values, ref.values, atol=1e-10)
+
+
+def test_constant_image():
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        ep = multiscale_eigenpairs(np.full((32, 32), 7.0), 3, levels=3, seed=0, maxiter=300)
+    assert ep.values[0] == 0.0 and np.all(np.diff(ep.values) >= 0)
+
+
+@pytest.mark.slow
+def test_one_megapixel_known_regions():
+    h = w = 1024
+    rng = np.random.default_rng(0)
+    yy, xx = np.mgrid[0:h, 0:w]
+    truth = np.zeros((h, w), dtype=int)
+    truth[:, w // 2 :] = 1
+    truth[(yy - 300) ** 2 + (xx - 260) ** 2 < 180**2] = 2
+    truth[h * 3 // 4 :, : w // 2] = 3
+    levels = np.array([0.1, 0.9, 0.5, 0.3])
+    img = levels[truth] + 0.03 * rng.standard_normal((h, w))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ep = multiscale_eigenpairs(img, 4, seed=0, tol=1e-3, maxiter=10)
+    labels = kway_ncut(ep, 4, seed=0).reshape(h, w)
+    # pixel accuracy under the best matching of labels to truth classes
+    table = np.zeros((4, 4))
+    np.add.at(table, (labels.ravel(), truth.ravel()), 1)
+    from scipy.optimize import linear_sum_assignment
+
+    r, c = linear_sum_assignment(-table)
+    assert table[r, c].sum() / (h * w) >= 0.99
