@@ -47,6 +47,7 @@ _MIN_PIECE = 0.05  # smallest side of an accepted cut, × A (and never below min
 _CANDIDATE_AREA = 0.2  # components from this size on are split candidates when non-convex
 _MIN_SOLIDITY = 0.9  # ... i.e. when area / convex-hull area is below this
 _SPLIT_FACTOR = 1.5  # components this many times A are always candidates
+_COARSE_MIN_NODES = 500  # coarse-grid eigensolve only when it has at least this many nodes
 
 
 # ============================================================================ result
@@ -474,7 +475,10 @@ def _split_component(
         mask=crop_mask,
     )
     W, nodes = graph.weights, graph.nodes
-    coarse = _Coarse(height, valley, crop_mask, factor, opt) if factor > 1 else None
+    # the coarse grid pays off only for large components: for small ones the fixed cost of an
+    # extra graph and interpolation exceeds the saving in the eigensolve
+    use_coarse = factor > 1 and nodes.size >= _COARSE_MIN_NODES * factor * factor
+    coarse = _Coarse(height, valley, crop_mask, factor, opt) if use_coarse else None
     labels = np.zeros(crop_mask.size, dtype=np.int32)
     labels[nodes] = 1
     next_label = 2
@@ -522,7 +526,7 @@ def _split_component(
                 "lambda2": float(pairs.values[1]),
                 "sizes": (int(a.size), int(b.size)),
                 "residual": float(pairs.residuals[1]),
-                "grid_factor": int(factor),
+                "grid_factor": int(factor) if use_coarse else 1,
             }
         )
         stack.append((a, lab, depth + 1))
@@ -630,10 +634,11 @@ def segment_objects(
     radius : float or None, default 3.0 (None: the default)
         Radius (pixels) of the affinity graph used for splitting.
     coarsen : int, optional
-        The eigenvector of each split is computed on a grid coarsened by this factor ``f``
-        (block means of the height map, block maxima of the valley map, so thin valleys
-        survive) and interpolated bilinearly to the pixels; the sweep and its Ncut value use
-        the full-resolution graph. None picks ``max(1, round(diameter / 14))``. A factor f makes
+        For components of at least 500 f² pixels the eigenvector of each split is computed on a
+        grid coarsened by this factor ``f`` (block means of the height map, block maxima of
+        the valley map, so thin valleys survive) and interpolated bilinearly to the pixels;
+        the sweep and its Ncut value always use the full-resolution graph. None picks
+        ``max(1, round(diameter / 14))``. A factor f makes
         every eigenproblem about f² times smaller; on BBBC039 f = 2 gave the same F1 as f = 1.
     seed : None, int or numpy.random.Generator, default 0
         Seeds the eigensolver start blocks.

@@ -299,11 +299,13 @@ def test_deterministic_and_record_is_json():
 
 
 @pytest.mark.parametrize("coarsen", [1, 2, 3])
-def test_touching_pair_split_on_every_grid(coarsen):
-    img, truth = blob_field([(48, 37), (48, 58)], seed=11)
-    res = segment_objects(img, min_area=20, object_diameter=24, coarsen=coarsen)
+def test_large_touching_pair_split_on_every_grid(coarsen):
+    # radius 30: the pair has ~5,400 pixels, enough for the coarse-grid eigensolve (>= 500 f²)
+    img, truth = blob_field([(100, 72), (100, 125)], shape=(200, 200), radius=30.0, seed=11)
+    res = segment_objects(img, min_area=20, object_diameter=60, coarsen=coarsen)
     assert res.n_objects == 2
-    assert best_iou(truth, res.labels).min() > 0.75
+    assert [s["grid_factor"] for s in res.splits] == [coarsen]
+    assert best_iou(truth, res.labels).min() > 0.85
 
 
 def test_none_options_mean_defaults():
