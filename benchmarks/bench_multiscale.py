@@ -86,12 +86,16 @@ def micrograph(h: int, w: int, seed: int = 0) -> np.ndarray:
     return np.clip(img, 0, 65535).astype(np.uint16)
 
 
-def _run(h, w, tol, maxiter, mode, timeout):
+def _run(h, w, tol, maxiter, mode, timeout, blas_threads):
     here = os.path.dirname(os.path.abspath(__file__))
     cmd = [sys.executable, "-c", _CHILD, str(h), str(w), str(tol), str(maxiter), mode, here]
     load = os.getloadavg()[0]
+    env = dict(os.environ)
+    if blas_threads:
+        for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+            env[var] = str(blas_threads)
     try:
-        proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
+        proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)
     except subprocess.TimeoutExpired:
         return {"h": h, "w": w, "mode": mode, "error": f"timeout {timeout}s", "load": load}
     for line in proc.stdout.splitlines():
@@ -102,16 +106,78 @@ def _run(h, w, tol, maxiter, mode, timeout):
     return {"h": h, "w": w, "mode": mode, "error": proc.stderr[-300:], "load": load}
 
 
+def multiscale_labels(image, n_regions: int, *, tol: float, maxiter: int, seed: int = 0):
+    """The multiscale segmentation pipeline used by this benchmark (k-way, connected)."""
+    from imgcut.multiscale import multiscale_eigenpairs
+    from imgcut.partition import kway_ncut
+    from imgcut.regions import enforce_connectivity
+
+    h, w = np.shape(image)[:2]
+    ep = multiscale_eigenpairs(image, n_regions, seed=seed, tol=tol, maxiter=maxiter)
+    lab = kway_ncut(ep, n_regions, seed=seed).reshape(h, w) + 1
+    return enforce_connectivity(lab.astype(np.int32), min_area=max(1, h * w // 1000)), ep
+
+
+def bsds_quality(n_images: int, tol: float, maxiter: int, n_regions: int = 8) -> list[dict]:
+    """Covering and boundary F of both paths on the first BSDS500 val images."""
+    import warnings
+    from pathlib import Path
+
+    import imgcut
+    from imgcut.groundtruth import read_bsds_mat
+    from imgcut.io import read_image
+    from imgcut.metrics import boundary_scores, segmentation_covering
+
+    root = Path(__file__).resolve().parents[2] / "shared" / "data" / "bsds500" / "val"
+    rows = []
+    for img_path in sorted((root / "images").glob("*.jpg"))[:n_images]:
+        gt = read_bsds_mat(root / "groundTruth" / (img_path.stem + ".mat"))
+        img = read_image(img_path).pixels
+        human = list(gt.segmentations)
+        row = {"image": img_path.stem}
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            t = time.perf_counter()
+            single = imgcut.segment(img, n_regions, method="kway", seed=0).labels
+            row["single_s"] = time.perf_counter() - t
+            t = time.perf_counter()
+            multi, _ = multiscale_labels(img, n_regions, tol=tol, maxiter=maxiter)
+            row["multi_s"] = time.perf_counter() - t
+        for name, lab in (("single", single), ("multi", multi)):
+            row[f"{name}_covering"] = float(segmentation_covering(lab, human))
+            row[f"{name}_F"] = float(boundary_scores(lab, human).f)
+            row[f"{name}_regions"] = int(lab.max())
+        print(json.dumps(row), flush=True)
+        rows.append(row)
+    if rows:
+        for key in ("covering", "F"):
+            a = np.mean([r[f"single_{key}"] for r in rows])
+            b = np.mean([r[f"multi_{key}"] for r in rows])
+            print(f"mean {key}: single {a:.3f}  multi {b:.3f}  difference {b - a:+.3f}")
+    return rows
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", default="321x481,512x512,724x724,1024x1024")
+    ap.add_argument("--sizes", default="321x481,512x512,724x724,1024x1024,1448x1448")
     ap.add_argument("--tol", type=float, default=1e-3)
     ap.add_argument("--maxiter", type=int, default=10)
     ap.add_argument("--timeout", type=float, default=1800)
     ap.add_argument("--single", action="store_true", help="also time the single-scale path")
     ap.add_argument("--plot", default=None, help="write a log-log PNG here")
     ap.add_argument("--json", default=None, help="append the rows to this JSON-lines file")
+    ap.add_argument(
+        "--blas-threads",
+        type=int,
+        default=1,
+        help="BLAS threads per child (0: library default). On a shared, oversubscribed "
+        "machine multi-threaded BLAS made the run 2.4x slower (measured at 256x256)",
+    )
+    ap.add_argument("--bsds", type=int, default=0, help="quality on this many BSDS val images")
     args = ap.parse_args(argv)
+    if args.bsds:
+        bsds_quality(args.bsds, args.tol, args.maxiter)
+        return 0
     sizes = [tuple(int(v) for v in s.split("x")) for s in args.sizes.split(",")]
     rows = []
     print(f"{'size':>11} {'MP':>6} {'mode':>6} {'s':>8} {'peak GB':>8} {'max res':>9} "
@@ -120,7 +186,7 @@ def main(argv=None) -> int:
         modes = ["multi"] + (["single"] if args.single and h * w <= 400_000 else [])
         for mode in modes:
             t = time.perf_counter()
-            r = _run(h, w, args.tol, args.maxiter, mode, args.timeout)
+            r = _run(h, w, args.tol, args.maxiter, mode, args.timeout, args.blas_threads)
             r["wall"] = time.perf_counter() - t
             rows.append(r)
             if args.json:
