@@ -17,7 +17,9 @@ import pytest
 from imgcut.evaluation import human_agreement
 from imgcut.groundtruth import read_bsds_mat
 
-N_IMAGES = 12  # first 12 val ids in sorted order: a fixed subset, about 10 s
+N_IMAGES = 12  # first 12 val ids in sorted order: a fixed subset, about 13 s of CPU
+
+pytestmark = [pytest.mark.slow, pytest.mark.shared]
 
 
 @pytest.fixture(scope="module")
