@@ -330,7 +330,10 @@ def _solve_arpack(Lc, u, m, tol, maxiter, rng, x0c) -> _Solved:
     return _Solved(1.0 - mu[order], V[:, order], count[0], "arpack")
 
 
-def _amg_preconditioner(A: sp.csr_matrix, rng: np.random.Generator):
+_AMG_GRAPH_FORM = True
+
+
+def _amg_hierarchy(A: sp.csr_matrix, rng: np.random.Generator):
     import pyamg
 
     # pyamg estimates spectral radii from a random start drawn from the global NumPy
@@ -341,16 +344,34 @@ def _amg_preconditioner(A: sp.csr_matrix, rng: np.random.Generator):
         ml = pyamg.smoothed_aggregation_solver(A, max_coarse=500)
     finally:
         np.random.set_state(state)  # noqa: NPY002
-    return ml.aspreconditioner(cycle="V")
+    return ml
 
 
 def _solve_lobpcg(Lc, u, m, tol, maxiter, rng, x0c, Pc) -> _Solved:
     n = Lc.shape[0]
-    # Preconditioner: AMG V-cycle for P + sigma I, where P is L itself or the
-    # normalised surrogate; the small shift keeps it positive definite (the
-    # Laplacian is singular) -- common practice, as in scikit-learn's amg mode.
+    # Preconditioner for L + sigma I (P: L itself or the normalised surrogate; the small
+    # shift keeps it positive definite, the Laplacian being singular -- common practice,
+    # as in scikit-learn's amg mode). Smoothed aggregation assumes constants span the
+    # near-null space, but the null vector of a normalised Laplacian is D^1/2 1; so the
+    # AMG is built on the graph-Laplacian form K = S (P + sigma I) S with S = D^1/2 (up
+    # to a scale), whose null vector is constant, and applied as S K^-1 S.
     A = (Pc if Pc is not None else Lc) + 1e-5 * sp.identity(n, format="csr")
-    M = _amg_preconditioner(sp.csr_matrix(A), rng)
+    if _AMG_GRAPH_FORM:
+        s = u / u.max()
+        K = sp.csr_matrix(sp.diags(s) @ A @ sp.diags(s))
+        ml = _amg_hierarchy(K, rng)
+
+        def apply(R):
+            R = np.asarray(R)
+            R2 = R.reshape(n, -1)
+            out = np.empty_like(R2)
+            for j in range(R2.shape[1]):
+                out[:, j] = s * ml.solve(s * R2[:, j], maxiter=1, cycle="V", tol=1e-30)
+            return out.reshape(R.shape)
+
+        M = spla.LinearOperator((n, n), matvec=apply, matmat=apply, dtype=np.float64)
+    else:
+        M = _amg_hierarchy(sp.csr_matrix(A), rng).aspreconditioner(cycle="V")
     X = _start_block(n, m, rng, x0c, u)
     it = maxiter if maxiter is not None else 200
     with warnings.catch_warnings():
