@@ -933,7 +933,8 @@ def multiscale_eigenpairs(
     iters = []
     level_res = []
     X = Y
-    for s in range(S - 1, -1, -1):
+    lam, res = np.zeros(0), np.zeros(0)
+    for s in range(S - 1, -1, -1) if m > 0 else ():
         X = problem._levels[s].grid.expand(X)
         final = s == 0
         it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
@@ -941,7 +942,7 @@ def multiscale_eigenpairs(
         iters.append(it)
         level_res.append(float(res.max()) if res.size else 0.0)
     timings["refine"] = time.perf_counter() - t0
-    lam, X = lam[:m], X[:, :m]
+    lam, X = lam[:m], (X[:, :m] if m > 0 else np.zeros((n0, 0)))
     info["level_iterations"] = iters[::-1]
     info["level_max_residual"] = level_res[::-1]
 
@@ -958,7 +959,8 @@ def multiscale_eigenpairs(
     if not converged:
         warnings.warn(
             f"{int((res > tol).sum())} of {k} multiscale eigenpairs have residuals above "
-            f"tol={tol:g} (largest {res.max():.2e}) after {iters[-1]} full-resolution LOBPCG "
+            f"tol={tol:g} (largest {res.max():.2e}) after {iters[-1] if iters else 0} "
+            "full-resolution LOBPCG "
             "iterations; raise maxiter, loosen tol, or add a level",
             EigenConvergenceWarning,
             stacklevel=2,

@@ -10,6 +10,7 @@ import pytest
 import scipy.linalg
 import scipy.sparse as sp
 
+from imgcut._errors import EigenConvergenceWarning
 from imgcut.features import compute_features
 from imgcut.graph import affinity_graph
 from imgcut.multiscale import (
@@ -184,8 +185,9 @@ def test_eigenpairs_match_dense_reference_and_reach_tol():
 
 def test_deterministic_and_warns_when_maxiter_too_small():
     img = _image(32, 32)
-    a = multiscale_eigenpairs(img, 3, levels=3, seed=3, tol=1e-9, maxiter=2)
-    with pytest.warns(Warning, match="residuals above"):
+    with pytest.warns(EigenConvergenceWarning, match="residuals above"):
+        a = multiscale_eigenpairs(img, 3, levels=3, seed=3, tol=1e-9, maxiter=2)
+    with pytest.warns(EigenConvergenceWarning, match="residuals above"):
         b = multiscale_eigenpairs(img, 3, levels=3, seed=3, tol=1e-9, maxiter=2)
     np.testing.assert_array_equal(a.vectors, b.vectors)
 
@@ -197,6 +199,12 @@ def test_single_level_is_the_plain_graph():
 
     ref = laplacian_eigenpairs(affinity_graph(img, radius=3).weights, 3, solver="dense")
     np.testing.assert_allclose(ep.values, ref.values, atol=1e-10)
+
+
+def test_k_one_is_the_constant_vector():
+    ep = multiscale_eigenpairs(_image(20, 20), 1, levels=2, seed=0)
+    assert ep.values.tolist() == [0.0] and ep.vectors.shape == (400, 1)
+    assert np.ptp(ep.vectors) == 0
 
 
 def test_constant_image():
@@ -220,11 +228,13 @@ def test_one_megapixel_known_regions():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         ep = multiscale_eigenpairs(img, 4, seed=0, tol=1e-3, maxiter=10)
-    labels = kway_ncut(ep, 4, seed=0).reshape(h, w)
+    _, labels = np.unique(kway_ncut(ep, 4, seed=0), return_inverse=True)
     # pixel accuracy under the best matching of labels to truth classes
-    table = np.zeros((4, 4))
-    np.add.at(table, (labels.ravel(), truth.ravel()), 1)
+    table = np.zeros((labels.max() + 1, 4))
+    np.add.at(table, (labels, truth.ravel()), 1)
     from scipy.optimize import linear_sum_assignment
 
     r, c = linear_sum_assignment(-table)
-    assert table[r, c].sum() / (h * w) >= 0.99
+    accuracy = table[r, c].sum() / (h * w)
+    print(f"1 MP pixel accuracy {accuracy:.4f}, residuals {ep.residuals}")
+    assert accuracy >= 0.99
