@@ -173,11 +173,16 @@ def connected_components(W) -> tuple[int, np.ndarray]:
     >>> connected_components(W)
     (2, array([0, 0, 1]))
     """
-    W = _check_affinity(W)
-    W = W.copy()
-    W.data = (W.data > 0).astype(np.float64)
-    W.eliminate_zeros()
-    n_comp, labels = csgraph.connected_components(W, directed=False)
+    return _positive_components(_check_affinity(W))
+
+
+def _positive_components(W: sp.csr_matrix) -> tuple[int, np.ndarray]:
+    """Components of the graph whose edges are the strictly positive entries of ``W``."""
+    pattern = sp.csr_matrix(
+        ((W.data > 0).astype(np.int8), W.indices.copy(), W.indptr.copy()), shape=W.shape
+    )  # copies: eliminate_zeros works in place and must not touch W's index arrays
+    pattern.eliminate_zeros()
+    n_comp, labels = csgraph.connected_components(pattern, directed=False)
     return int(n_comp), labels.astype(np.int64)
 
 
@@ -531,8 +536,9 @@ def laplacian_eigenpairs(
 
     t0 = time.perf_counter()
     d = np.asarray(W.sum(axis=1)).ravel()
-    n_comp, labels = csgraph.connected_components(W, directed=False)
-    labels = labels.astype(np.int64)
+    # csgraph treats stored entries as edges even when their weight underflowed to 0
+    # (affinity_graph keeps every pair within the radius), so search on the positive ones.
+    n_comp, labels = _positive_components(W)
     sizes = np.bincount(labels, minlength=n_comp)
     volumes = np.bincount(labels, weights=d, minlength=n_comp)
     first = np.full(n_comp, n, dtype=np.int64)

@@ -357,3 +357,20 @@ def test_bad_input(W, kwargs, match):
 def test_dense_refuses_large_components():
     with pytest.raises(ValueError, match="at most"):
         laplacian_eigenpairs(grid_graph(70, 70), 2, solver="dense")
+
+
+def test_stored_zero_weights_do_not_connect_components():
+    """Two blocks joined only by explicitly stored zeros are two components: the
+    multiplicity of eigenvalue 0 equals the number of components (Chung 1997, Lemma 1.7)."""
+    rows = np.array([0, 1, 2, 3, 1, 2])
+    cols = np.array([1, 0, 3, 2, 2, 1])
+    vals = np.array([1.0, 1.0, 1.0, 1.0, 0.0, 0.0])  # the 1-2 link is a stored zero
+    W = sp.csr_matrix((vals, (rows, cols)), shape=(4, 4))
+    assert W.nnz == 6
+    n_comp, labels = connected_components(W)
+    assert n_comp == 2 and labels.tolist() == [0, 0, 1, 1]
+    ep = laplacian_eigenpairs(W, 2, solver="dense")
+    assert ep.n_components == 2
+    np.testing.assert_allclose(ep.values, [0.0, 0.0], atol=1e-12)
+    # the caller's matrix is left as it was
+    assert W.nnz == 6 and W.indptr.tolist() == [0, 1, 3, 5, 6]
