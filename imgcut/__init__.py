@@ -6,8 +6,15 @@
 2
 """
 
+from imgcut.objects import ObjectSegmentation, segment_objects
 from imgcut.segment import Segmentation, segment
 
 __version__ = "0.1.0"
 
-__all__ = ["segment", "Segmentation", "__version__"]
+__all__ = [
+    "segment",
+    "Segmentation",
+    "segment_objects",
+    "ObjectSegmentation",
+    "__version__",
+]
