@@ -2,7 +2,7 @@
 
 >>> import numpy as np, imgcut
 >>> image = np.zeros((24, 32)); image[:, 16:] = 1.0
->>> imgcut.segment(image, n_regions=2).labels.max()
+>>> int(imgcut.segment(image, n_regions=2).labels.max())
 2
 """
 
