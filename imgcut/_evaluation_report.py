@@ -114,6 +114,10 @@ def _markdown(res: Any, header: list[str], rows: list[list[Any]], plots: list[st
     if res.failures:
         lines += ["", "## Failed images", ""]
         lines += [f"- `{n}`: {m}" for n, m in res.failures]
+    warned = [im for im in res.images if im.warnings]
+    if warned:
+        lines += ["", "## Warnings", ""]
+        lines += [f"- `{im.name}`: {w}" for im in warned for w in im.warnings]
     if plots:
         lines += ["", "## Plots", ""] + [f"![{p}]({p})" for p in plots]
     return ("\n".join(lines) + "\n").encode()

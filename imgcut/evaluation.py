@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import time
+import warnings
 import zlib
 from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -317,6 +318,9 @@ class ImageResult:
         Objects mode.
     seconds : float
         Segmentation plus scoring time.
+    warnings : list of str
+        Warnings raised while segmenting and scoring this image (one line each),
+        recorded instead of printed so that they can be reported per image.
 
     The label images scored (one per sweep entry, or one in objects mode) are kept
     zlib-compressed (label images shrink 20-100×, so a 100-image sweep stays small);
@@ -329,6 +333,7 @@ class ImageResult:
     scores: list[ImageScore] = field(default_factory=list)
     instance: InstanceScores | None = None
     seconds: float = 0.0
+    warnings: list[str] = field(default_factory=list)
     packed_labels: list[tuple[bytes, str, tuple[int, ...]]] = field(default_factory=list)
 
     def store_labels(self, labels: Sequence[np.ndarray]) -> None:
@@ -357,7 +362,19 @@ def _read_pixels(path: Path) -> np.ndarray:
     return read_image(path).pixels
 
 
-def _evaluate_item(
+def _evaluate_item(*args: Any) -> ImageResult:
+    """Score one item, recording the warnings it raises on the result."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = _evaluate_item_inner(*args)
+    seen: dict[str, None] = {}
+    for w in caught:
+        seen.setdefault(f"{w.category.__name__}: {' '.join(str(w.message).split())}")
+    res.warnings = list(seen)
+    return res
+
+
+def _evaluate_item_inner(
     item: DatasetItem,
     mode: str,
     counts: tuple[int, ...],

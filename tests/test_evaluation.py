@@ -90,6 +90,24 @@ def test_evaluate_bsds_layout_with_stub(tmp_path):
     assert res.regions.covering_best >= res.regions.covering_ois >= res.regions.covering_ods
 
 
+def test_warnings_are_recorded_per_image(tmp_path):
+    import warnings
+
+    from imgcut._errors import EigenConvergenceWarning
+
+    root = _make_bsds(tmp_path / "ds", n=2)
+
+    def noisy(image, counts):
+        warnings.warn("residual 3e-5 above tol", EigenConvergenceWarning, stacklevel=1)
+        warnings.warn("residual 3e-5 above tol", EigenConvergenceWarning, stacklevel=1)
+        return truth_sweep(image, counts)
+
+    res = evaluate_dataset(root, counts=(2,), sweep_segmenter=noisy)
+    assert res.images[0].warnings == ["EigenConvergenceWarning: residual 3e-5 above tol"]
+    write_report(res, tmp_path / "rep")
+    assert "## Warnings" in (tmp_path / "rep" / "summary.md").read_text()
+
+
 def test_label_images_are_kept_compressed(tmp_path):
     root = _make_bsds(tmp_path / "ds", n=1)
     res = evaluate_dataset(root, counts=(2, 3), sweep_segmenter=truth_sweep)

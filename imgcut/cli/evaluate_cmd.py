@@ -90,15 +90,17 @@ class _Bar:
         if self._bar is not None:
             self._bar.__exit__(*exc)
 
+    def _say(self, msg: str) -> None:
+        if self._bar is not None:
+            self._bar.console.print(msg, markup=False, highlight=False)
+        else:
+            typer.echo(msg, err=True)
+
     def __call__(self, name: str, error: str | None) -> None:
         self.n += 1
         if error is not None:
             self.failed += 1
-            msg = f"imgcut evaluate: {name}: failed, skipped: {error}"
-            if self._bar is not None:
-                self._bar.console.print(msg, markup=False, highlight=False)
-            else:
-                typer.echo(msg, err=True)
+            self._say(f"imgcut evaluate: {name}: failed, skipped: {error}")
         if self._bar is not None:
             self._bar.update(self._task, advance=1, failed=self.failed)
         elif not self.quiet:
@@ -201,6 +203,10 @@ def evaluate_command(
         raise _fail(name, "interrupted", EXIT_INTERRUPTED) from None
     except (ValueError, OSError) as exc:
         raise _fail(name, exc, EXIT_DATA) from None
+    for im in result.images:
+        if im.warnings and not quiet:
+            more = f" (+{len(im.warnings) - 1} more)" if len(im.warnings) > 1 else ""
+            typer.echo(f"imgcut evaluate: {im.name}: warning: {im.warnings[0]}{more}", err=True)
     _print_summary(result, out, len(written))
     if result.failures:
         raise typer.Exit(EXIT_DATA)
