@@ -17,6 +17,7 @@ import numpy as np
 
 from imgcut.features import compute_features
 from imgcut.graph import DEFAULT_MEMORY_BUDGET, affinity_graph
+from imgcut.multiscale import multiscale_eigenpairs, multiscale_problem
 from imgcut.partition import Hierarchy, SplitRecord, kway_ncut, recursive_ncut
 from imgcut.regions import enforce_connectivity, pair_weights, renumber_raster
 from imgcut.spectral import SOLVERS, laplacian_eigenpairs
@@ -33,6 +34,10 @@ _CUES = ("combined", "intensity", "contour")
 MIN_AREA_FRACTION = 0.001
 #: Eigenpairs solved on the whole image by default for ``method="recursive"``.
 RECURSIVE_EIGENVECTORS = 3
+#: Valid values of ``scale``.
+SCALES = ("single", "multi")
+#: Radius of the full-resolution graph on the multiscale path (8 neighbours).
+MULTISCALE_RADIUS_FINE = 1.5
 
 
 @dataclass(frozen=True, eq=False)
@@ -212,6 +217,7 @@ def segment(
     mask: Any = None,
     n_eigenvectors: int | None = None,
     memory_budget: int | None = DEFAULT_MEMORY_BUDGET,
+    scale: str = "single",
 ) -> Segmentation:
     """Segment an image into regions by normalized cuts.
 
@@ -268,6 +274,13 @@ def segment(
     memory_budget : int or None, default 4 GiB
         Refuse graphs whose estimated peak memory exceeds this many bytes
         (:class:`~imgcut._errors.GraphTooLargeError`); None: no limit.
+    scale : {"single", "multi"}, default "single"
+        ``"single"``: one pixel graph of the given ``radius``. ``"multi"``: the multiscale
+        pencil of :mod:`imgcut.multiscale` (Cour, Benezit & Shi 2005): a radius-1.5 graph at
+        full resolution plus long-range links (``radius``) on block-averaged coarse levels,
+        solved coarse to fine; much less memory and time on large images, partitioned with
+        ``method="kway"`` (required), no ``mask``. Its eigensolves usually stop above
+        ``tol`` and warn; see ``docs/multiscale.md``.
 
     Returns
     -------
@@ -344,6 +357,13 @@ def segment(
             raise ValueError(f"method='recursive' needs n_eigenvectors >= 2, got {n_eigenvectors}")
     if not isinstance(connected, bool | np.bool_):
         raise ValueError(f"connected must be True or False, got {connected!r}")
+    _check_choice("scale", scale, SCALES)
+    if scale == "multi" and method != "kway":
+        raise ValueError(
+            "scale='multi' needs method='kway' (recursive re-solves would drop the coarse levels)"
+        )
+    if scale == "multi" and mask is not None:
+        raise ValueError("scale='multi' does not support a mask; use scale='single'")
     rng = np.random.default_rng(seed)
     timings: dict[str, float] = {}
 
@@ -352,16 +372,28 @@ def segment(
     timings["features"] = time.perf_counter() - t
 
     t = time.perf_counter()
-    graph = affinity_graph(
-        feats,
-        radius=radius,
-        cue=cue,
-        sigma_feature=sigma_feature,
-        sigma_distance=sigma_distance,
-        sigma_edge=sigma_edge,
-        mask=mask,
-        memory_budget=memory_budget,
-    )
+    problem = None
+    if scale == "multi":
+        problem = multiscale_problem(
+            feats,
+            radius_fine=MULTISCALE_RADIUS_FINE,
+            radius_coarse=radius,
+            cue=cue,
+            sigma_feature=sigma_feature,
+            sigma_edge=sigma_edge,
+        )
+        graph = problem.fine_graph
+    else:
+        graph = affinity_graph(
+            feats,
+            radius=radius,
+            cue=cue,
+            sigma_feature=sigma_feature,
+            sigma_distance=sigma_distance,
+            sigma_edge=sigma_edge,
+            mask=mask,
+            memory_budget=memory_budget,
+        )
     timings["graph"] = time.perf_counter() - t
     shape = graph.shape
     nodes = graph.nodes
@@ -373,7 +405,12 @@ def segment(
     k = min(n_eigenvectors, n)
 
     t = time.perf_counter()
-    ep = laplacian_eigenpairs(graph.weights, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng)
+    if problem is not None:
+        ep = multiscale_eigenpairs(None, k, problem=problem, tol=tol, maxiter=maxiter, seed=rng)
+    else:
+        ep = laplacian_eigenpairs(
+            graph.weights, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng
+        )
     timings["eigensolve"] = time.perf_counter() - t
 
     values = feats.values.reshape(-1, feats.values.shape[-1])[nodes]
@@ -416,7 +453,8 @@ def segment(
         "n_regions": n_regions,
         "method": method,
         "kway_method": kway_method,
-        "radius": float(graph.radius),
+        "radius": float(radius),
+        "radius_full_resolution": float(graph.radius),
         "cue": graph.cue,
         "sigma_feature": graph.sigmas.get("feature"),
         "sigma_distance": graph.sigmas.get("distance"),
@@ -432,6 +470,7 @@ def segment(
         "mask": mask is not None,
         "n_eigenvectors": int(ep.k),
         "memory_budget": memory_budget,
+        "scale": scale,
         "image_shape": [int(s) for s in np.shape(image)],
         "image_dtype": str(np.asarray(image).dtype),
         "feature_kind": feats.kind,

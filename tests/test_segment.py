@@ -261,3 +261,36 @@ def test_bad_options_raise_value_error(kwargs, match):
 def test_bad_images_raise_value_error(image):
     with pytest.raises(ValueError, match="image"):
         segment(image, 2)
+
+
+def test_multiscale_path_recovers_four_quadrants():
+    """scale='multi' (Cour, Benezit & Shi 2005 pencil) gives the same known answer as the
+    single-scale path on four flat quadrants plus noise (ground truth by construction)."""
+    import warnings
+
+    from scipy.optimize import linear_sum_assignment
+
+    rng = np.random.default_rng(3)
+    truth = np.zeros((64, 96), dtype=int)
+    truth[:32, 48:] = 1
+    truth[32:, :48] = 2
+    truth[32:, 48:] = 3
+    img = np.array([0.1, 0.4, 0.7, 1.0])[truth] + 0.03 * rng.standard_normal(truth.shape)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the multiscale solve may stop above tol (documented)
+        res = segment(img, n_regions=4, method="kway", scale="multi", radius=3, maxiter=60)
+    assert res.params["scale"] == "multi" and res.params["radius_full_resolution"] == 1.5
+    table = np.zeros((res.labels.max() + 1, 4))
+    np.add.at(table, (res.labels.ravel(), truth.ravel()), 1)
+    rows, cols = linear_sum_assignment(-table)
+    assert table[rows, cols].sum() / truth.size >= 0.99
+
+
+def test_multiscale_path_rejects_recursive_and_mask():
+    img = np.zeros((8, 8))
+    with pytest.raises(ValueError, match="method='kway'"):
+        segment(img, scale="multi")
+    with pytest.raises(ValueError, match="mask"):
+        segment(img, method="kway", scale="multi", mask=np.ones((8, 8), bool))
+    with pytest.raises(ValueError, match="scale"):
+        segment(img, scale="huge")
