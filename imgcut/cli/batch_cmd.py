@@ -16,12 +16,14 @@ from typing import Annotated, Any
 
 import typer
 
+from imgcut.cli import _options as opt
 from imgcut.cli._app import app
+from imgcut.cli._progress import CountingBar
 
 __all__ = ["batch_command"]
 
 
-class _Progress:
+class _Progress(CountingBar):
     """One progress display for the whole batch: a rich bar on a terminal, else plain lines.
 
     Images found up to date are counted, not listed one by one, and stay out of the bar: it
@@ -29,56 +31,20 @@ class _Progress:
     """
 
     def __init__(self, *, quiet: bool, stream: Any = None) -> None:
-        self.quiet = quiet
-        self.stream = stream or sys.stdout
-        self.live = (not quiet) and self.stream.isatty()
-        self._bar: Any = None
-        self._task: Any = None
+        super().__init__(
+            "[bold]batch",
+            "[green]{task.fields[done]} done[/] · [red]{task.fields[failed]} failed[/]"
+            " · {task.fields[remaining]} remaining{task.fields[skipped]}",
+            stream=stream if stream is not None else sys.stdout,
+            quiet=quiet,
+            transient=False,
+        )
         self._skipped_told = 0
-
-    def __enter__(self) -> _Progress:
-        if self.live:
-            from rich.console import Console
-            from rich.progress import (
-                BarColumn,
-                MofNCompleteColumn,
-                Progress,
-                TextColumn,
-                TimeElapsedColumn,
-                TimeRemainingColumn,
-            )
-
-            self._bar = Progress(
-                TextColumn("[bold]batch"),
-                BarColumn(),
-                MofNCompleteColumn(),
-                TextColumn(
-                    "[green]{task.fields[done]} done[/] · [red]{task.fields[failed]} failed[/]"
-                    " · {task.fields[remaining]} remaining{task.fields[skipped]}"
-                ),
-                TimeElapsedColumn(),
-                TextColumn("ETA"),
-                TimeRemainingColumn(),
-                console=Console(file=self.stream),
-                transient=False,
-            )
-            self._bar.__enter__()
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        if self._bar is not None:
-            self._bar.__exit__(*exc)
-
-    def _say(self, text: str) -> None:
-        if self._bar is not None:
-            self._bar.console.print(text, markup=False, highlight=False, soft_wrap=True)
-        else:
-            print(text, file=self.stream, flush=True)
 
     def _tell_skipped(self, event: Any) -> None:
         if event.skipped > self._skipped_told:
             n = event.skipped
-            self._say(f"{n} image{'s' if n != 1 else ''} already up to date (skipped)")
+            self.say(f"{n} image{'s' if n != 1 else ''} already up to date (skipped)")
             self._skipped_told = n
 
     def __call__(self, event: Any) -> None:
@@ -86,46 +52,40 @@ class _Progress:
             return
         last = event.last
         if last is None:
-            if self._bar is None:
-                self._say(f"batch: {event.total} images")
+            if not self.live:
+                self.say(f"batch: {event.total} images")
             return
         if last.status == "skipped":
             if event.remaining == 0:
                 self._tell_skipped(event)
             return
         self._tell_skipped(event)
-        if self._bar is not None:
-            work = event.total - event.skipped
+        if self.live:
             skipped = f" · {event.skipped} up to date" if event.skipped else ""
-            fields = dict(
-                done=event.done, failed=event.failed, remaining=event.remaining, skipped=skipped
+            self.show(
+                total=event.total - event.skipped,
+                completed=event.done + event.failed,
+                done=event.done,
+                failed=event.failed,
+                remaining=event.remaining,
+                skipped=skipped,
             )
-            if self._task is None:
-                self._task = self._bar.add_task("batch", total=work, **fields)
-            self._bar.update(self._task, total=work, completed=event.done + event.failed, **fields)
             if last.status == "failed":
-                self._say(f"failed {last.path}: {last.error}")
+                self.say(f"failed {last.path}: {last.error}")
             return
         width = len(str(event.total))
         if last.status == "failed":
             detail = f"  ({last.error})"
         else:
             detail = f"  ({last.seconds:.1f} s)" if last.seconds is not None else ""
-        self._say(f"[{event.finished:>{width}}/{event.total}] {last.status:<7} {last.path}{detail}")
+        self.say(f"[{event.finished:>{width}}/{event.total}] {last.status:<7} {last.path}{detail}")
 
 
 def _fail(message: str, code: int) -> typer.Exit:
-    first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
-    typer.echo(f"imgcut batch: error: {first}", err=True)
-    return typer.Exit(code)
+    return opt.fail("batch", message, code)
 
 
 _G_BATCH = "Batch"
-
-# Parameters of `imgcut segment` that concern one run of one file, not the segmentation: batch
-# has its own (--out, --force, --quiet) or none. Every other segment parameter is reused as is,
-# so the two commands always share option names, defaults, help and parsing.
-_SEGMENT_ONLY = frozenset({"image", "out", "overwrite", "quiet", "as_json", "debug"})
 
 
 def _batch_command(
@@ -213,7 +173,10 @@ def _batch_command(
     from imgcut.batch import run_batch
 
     try:
-        options = _options_from(segment_params)
+        try:
+            options = opt.segment_options(segment_params)
+        except opt.UsageProblem as exc:
+            raise ValueError(str(exc)) from None
         with _Progress(quiet=quiet) as view, _terminate_as_interrupt():
             report = run_batch(
                 input_dir,
@@ -229,20 +192,20 @@ def _batch_command(
     except KeyboardInterrupt:  # only when the batch could not even record its state
         if debug:
             raise
-        raise _fail("interrupted", 130) from None
+        raise _fail("interrupted", opt.EXIT_INTERRUPTED) from None
     except (ValueError, ImportError) as exc:  # bad options or folders, dask missing
         if debug:
             raise
-        raise _fail(str(exc), 2) from None
+        raise _fail(str(exc), opt.EXIT_USAGE) from None
     except OSError as exc:  # the scheduler cannot be reached, the disk is full, ...
         if debug:
             raise
-        raise _fail(f"{type(exc).__name__}: {exc}", 1) from None
+        raise _fail(f"{type(exc).__name__}: {exc}", opt.EXIT_DATA) from None
     except Exception as exc:  # a failure of the batch machinery itself (not of one image)
         if debug:
             raise
         raise _fail(
-            f"{type(exc).__name__}: {exc} (rerun with --debug for the traceback)", 1
+            f"{type(exc).__name__}: {exc} (rerun with --debug for the traceback)", opt.EXIT_DATA
         ) from None
 
     counts = (
@@ -277,60 +240,6 @@ def _terminate_as_interrupt() -> Iterator[None]:
         signal.signal(signal.SIGTERM, previous)
 
 
-def _options_from(params: dict[str, Any]) -> Any:
-    """SegmentOptions from the segment parameters, parsed exactly as `imgcut segment` does."""
-    import dataclasses
-
-    from imgcut.cli import segment_cmd as seg
-    from imgcut.runner import OptionError, SegmentOptions
-
-    converters = {
-        "regions": ("n_regions", seg._parse_regions),
-        "channel": ("channel", seg._parse_channel),
-        "plane": ("plane", seg._parse_plane),
-        "memory_budget": ("memory_budget", lambda v: None if v is None else seg._gib(v)),
-    }
-    fields = {f.name for f in dataclasses.fields(SegmentOptions)}
-    kwargs = {}
-    try:
-        for name, value in params.items():
-            if name in converters:
-                field_name, convert = converters[name]
-                kwargs[field_name] = convert(value)
-            elif name in fields:
-                kwargs[name] = value
-        return SegmentOptions(**kwargs)
-    except seg._UsageProblem as exc:
-        raise ValueError(str(exc)) from None
-    except OptionError as exc:
-        raise ValueError(f"{seg._FLAGS.get(exc.option, exc.option)} {exc.problem}") from None
-
-
-def _build_command() -> Any:
-    """`_batch_command` with every segmentation option of `imgcut segment` appended."""
-    import inspect
-
-    from imgcut.cli.segment_cmd import segment_command
-
-    own = inspect.signature(_batch_command, eval_str=True)
-    params = [p for p in own.parameters.values() if p.kind is not p.VAR_KEYWORD]
-    taken = {p.name for p in params}
-    shared = [
-        p.replace(kind=inspect.Parameter.KEYWORD_ONLY)
-        for p in inspect.signature(segment_command, eval_str=True).parameters.values()
-        if p.name not in _SEGMENT_ONLY and p.name not in taken
-    ]
-    params = [p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in params] + shared
-
-    def batch_command(**kwargs: Any) -> None:
-        own_kwargs = {k: v for k, v in kwargs.items() if k in taken}
-        segment_kwargs = {k: v for k, v in kwargs.items() if k not in taken}
-        _batch_command(**own_kwargs, **segment_kwargs)
-
-    batch_command.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
-    batch_command.__annotations__ = {p.name: p.annotation for p in params}
-    batch_command.__doc__ = _batch_command.__doc__
-    return batch_command
-
-
-batch_command = app.command("batch", no_args_is_help=True)(_build_command())
+batch_command = app.command("batch", no_args_is_help=True)(
+    opt.with_segmentation_options(_batch_command)
+)

@@ -11,25 +11,16 @@ from __future__ import annotations
 
 import json
 import math
-import sys
 from pathlib import Path
 from typing import Annotated, Any
 
 import typer
 
 from imgcut.cli._app import app
+from imgcut.cli._options import EXIT_DATA, EXIT_INTERRUPTED, EXIT_USAGE, fail
+from imgcut.cli._progress import CountingBar
 
 __all__ = ["evaluate_command", "score_command", "EXIT_DATA", "EXIT_USAGE"]
-
-EXIT_DATA = 1
-EXIT_USAGE = 2
-EXIT_INTERRUPTED = 130
-
-
-def _fail(command: str, message: object, code: int) -> typer.Exit:
-    first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
-    typer.echo(f"imgcut {command}: error: {first}", err=True)
-    return typer.Exit(code)
 
 
 def _parse_ints(text: str, flag: str) -> tuple[int, ...]:
@@ -52,59 +43,27 @@ def _parse_floats(text: str, flag: str) -> tuple[float, ...]:
     return vals
 
 
-class _Bar:
-    """rich progress bar on a terminal; plain lines otherwise (stderr)."""
+class _Bar(CountingBar):
+    """Scoring progress on stderr: a rich bar on a terminal, plain lines otherwise."""
 
     def __init__(self, total: int, quiet: bool) -> None:
-        self.total, self.quiet, self.n, self.failed = total, quiet, 0, 0
-        self._bar: Any = None
-        self._task: Any = None
+        super().__init__("scoring", "{task.fields[failed]} failed", quiet=quiet)
+        self.total, self.n, self.failed = total, 0, 0
 
     def __enter__(self) -> _Bar:
-        if not self.quiet and sys.stderr.isatty():
-            from rich.console import Console
-            from rich.progress import (
-                BarColumn,
-                MofNCompleteColumn,
-                Progress,
-                TextColumn,
-                TimeElapsedColumn,
-                TimeRemainingColumn,
-            )
-
-            self._bar = Progress(
-                TextColumn("scoring"),
-                BarColumn(),
-                MofNCompleteColumn(),
-                TextColumn("{task.fields[failed]} failed"),
-                TimeElapsedColumn(),
-                TimeRemainingColumn(),
-                console=Console(stderr=True),
-                transient=True,
-            )
-            self._bar.__enter__()
-            self._task = self._bar.add_task("scoring", total=self.total, failed=0)
+        super().__enter__()
+        self.show(total=self.total, failed=0)
         return self
-
-    def __exit__(self, *exc: object) -> None:
-        if self._bar is not None:
-            self._bar.__exit__(*exc)
-
-    def _say(self, msg: str) -> None:
-        if self._bar is not None:
-            self._bar.console.print(msg, markup=False, highlight=False)
-        else:
-            typer.echo(msg, err=True)
 
     def __call__(self, name: str, error: str | None) -> None:
         self.n += 1
         if error is not None:
             self.failed += 1
-            self._say(f"imgcut evaluate: {name}: failed, skipped: {error}")
-        if self._bar is not None:
-            self._bar.update(self._task, advance=1, failed=self.failed)
+            self.say(f"imgcut evaluate: {name}: failed, skipped: {error}")
+        if self.live:
+            self.show(completed=self.n, failed=self.failed)
         elif not self.quiet:
-            typer.echo(f"[{self.n}/{self.total}] {name} {'failed' if error else 'ok'}", err=True)
+            self.say(f"[{self.n}/{self.total}] {name} {'failed' if error else 'ok'}")
 
 
 @app.command("evaluate", no_args_is_help=True)
@@ -181,7 +140,7 @@ def evaluate_command(
         if out.resolve() == data_dir.resolve():
             raise ValueError(f"{out}: the report folder must differ from the dataset folder")
     except (ValueError, GroundTruthError) as exc:
-        raise _fail(name, exc, EXIT_USAGE) from None
+        raise fail(name, exc, EXIT_USAGE) from None
     total = len(dataset.items[:limit] if limit else dataset.items)
     for p in dataset.unmatched:
         typer.echo(f"imgcut evaluate: {p}: no ground truth of the same name, skipped", err=True)
@@ -200,9 +159,9 @@ def evaluate_command(
             )
         written = write_report(result, out)
     except KeyboardInterrupt:
-        raise _fail(name, "interrupted", EXIT_INTERRUPTED) from None
+        raise fail(name, "interrupted", EXIT_INTERRUPTED) from None
     except (ValueError, OSError) as exc:
-        raise _fail(name, exc, EXIT_DATA) from None
+        raise fail(name, exc, EXIT_DATA) from None
     for im in result.images:
         if im.warnings and not quiet:
             more = f" (+{len(im.warnings) - 1} more)" if len(im.warnings) > 1 else ""
@@ -295,7 +254,7 @@ def score_command(
             if not p.exists():
                 raise ValueError(f"{p}: no such file or folder")
     except ValueError as exc:
-        raise _fail(name, exc, EXIT_USAGE) from None
+        raise fail(name, exc, EXIT_USAGE) from None
     try:
         seg = _read_segmentation(segmentation)
         truths = [read_ground_truth(p) for p in ground_truth]
@@ -322,7 +281,7 @@ def score_command(
         else:
             result = score_image(seg, truth, max_dist=max_dist).as_dict()
     except (ValueError, GroundTruthError, OSError) as exc:
-        raise _fail(name, exc, EXIT_DATA) from None
+        raise fail(name, exc, EXIT_DATA) from None
     result = _jsonable(result)
     if as_json:
         typer.echo(json.dumps(result))

@@ -1,0 +1,466 @@
+"""Options shared by the imgcut commands: definitions, parsers and one-line errors.
+
+``imgcut segment`` and ``imgcut batch`` take the same segmentation options; they are defined
+once here (the signature of :func:`_segmentation_options`) and appended to each command's own
+parameters by :func:`with_segmentation_options`, so both commands always share option names,
+defaults, help and parsing. :func:`segment_options` turns the parsed values into
+:class:`imgcut.runner.SegmentOptions`, naming the user's flag in every error.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import inspect
+from collections.abc import Callable
+from typing import Annotated, Any
+
+import typer
+
+__all__ = [
+    "EXIT_DATA",
+    "EXIT_USAGE",
+    "EXIT_INTERRUPTED",
+    "FLAGS",
+    "PANEL_CUT",
+    "PANEL_GRAPH",
+    "PANEL_INPUT",
+    "PANEL_OBJECTS",
+    "PANEL_OUTPUT",
+    "UsageProblem",
+    "fail",
+    "parse_regions",
+    "parse_channel",
+    "parse_plane",
+    "gib",
+    "segment_options",
+    "with_segmentation_options",
+]
+
+EXIT_DATA = 1  # the file is not a usable image, or the segmentation failed on it
+EXIT_USAGE = 2  # options, paths or existing outputs: the command as typed cannot run
+EXIT_INTERRUPTED = 130  # Ctrl-C or SIGTERM
+
+# SegmentOptions field → the flag that sets it (for error messages in the user's terms)
+FLAGS = {
+    "n_regions": "--regions",
+    "max_ncut": "--max-ncut",
+    "method": "--method",
+    "kway_method": "--kway-method",
+    "radius": "--radius",
+    "cue": "--cue",
+    "sigma_feature": "--sigma-feature",
+    "sigma_distance": "--sigma-distance",
+    "sigma_edge": "--sigma-edge",
+    "min_area": "--min-area",
+    "connected": "--connected",
+    "solver": "--solver",
+    "tol": "--tol",
+    "maxiter": "--maxiter",
+    "seed": "--seed",
+    "n_eigenvectors": "--n-eigenvectors",
+    "memory_budget": "--memory-budget",
+    "mode": "--mode",
+    "object_diameter": "--object-diameter",
+    "pixel_size": "--pixel-size",
+    "exclude_border": "--exclude-border",
+    "small_objects": "--small-objects",
+    "foreground": "--foreground",
+    "eigenvectors": "--eigenvectors",
+    "channel": "--channel",
+    "plane": "--plane",
+    "max_pixels": "--max-pixels",
+    "label_format": "--label-format",
+    "fill": "--fill",
+}
+
+# help panels (rich) grouping the options
+PANEL_GRAPH = "Graph"
+PANEL_CUT = "Partition"
+PANEL_INPUT = "Input"
+PANEL_OBJECTS = "Objects mode (fluorescence nuclei)"
+PANEL_OUTPUT = "Output"
+
+
+class UsageProblem(Exception):
+    """An option value the command line itself rejects (exit 2)."""
+
+
+def fail(command: str, message: object, code: int) -> typer.Exit:
+    """Print ``imgcut COMMAND: error: MESSAGE`` (first line only) on stderr; return the Exit."""
+    first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
+    typer.echo(f"imgcut {command}: error: {first}", err=True)
+    return typer.Exit(code)
+
+
+def _count_or_word(text: str, flag: str, rule: str, low: int, word: str) -> int | str:
+    """An integer ≥ ``low`` or the literal ``word`` (any case); else UsageProblem."""
+    if text.strip().lower() == word:
+        return word
+    try:
+        value = int(text)
+    except ValueError:
+        value = None
+    if value is None or value < low:
+        shown = text.strip() if value is not None else repr(text.strip())
+        raise UsageProblem(f"{flag} must be {rule} or '{word}', got {shown}")
+    return value
+
+
+def parse_regions(text: str) -> int | None:
+    """``--regions``: a count ≥ 1, or None for 'auto'."""
+    value = _count_or_word(text, "--regions", "a count ≥ 1", 1, "auto")
+    return None if value == "auto" else int(value)
+
+
+def parse_plane(text: str | None) -> int | str | None:
+    """``--plane``: an index ≥ 0 or 'max'."""
+    return None if text is None else _count_or_word(text, "--plane", "an index ≥ 0", 0, "max")
+
+
+def parse_channel(text: str | None) -> tuple[int, ...] | None:
+    """``--channel``: one index or comma-separated indices ≥ 0."""
+    if text is None:
+        return None
+    try:
+        values = tuple(int(part) for part in text.split(",") if part.strip() != "")
+    except ValueError:
+        raise UsageProblem(
+            f"--channel must be an index or comma-separated indices like 0,2; got {text!r}"
+        ) from None
+    if not values or any(v < 0 for v in values):
+        raise UsageProblem(f"--channel indices must be ≥ 0; got {text!r}")
+    return values
+
+
+def gib(value: float | None) -> int | None:
+    """``--memory-budget`` in GiB → bytes (None stays None)."""
+    if value is None:
+        return None
+    if not value > 0:
+        raise UsageProblem(f"--memory-budget must be > 0 (GiB), got {value}")
+    return int(value * 2**30)
+
+
+# command-line parameter → (SegmentOptions field, parser)
+_CONVERTERS: dict[str, tuple[str, Callable[[Any], Any]]] = {
+    "regions": ("n_regions", parse_regions),
+    "channel": ("channel", parse_channel),
+    "plane": ("plane", parse_plane),
+    "memory_budget": ("memory_budget", gib),
+}
+
+
+def segment_options(params: dict[str, Any]) -> Any:
+    """:class:`imgcut.runner.SegmentOptions` from parsed command-line values.
+
+    Parameters that are not segmentation options are ignored. Raises :class:`UsageProblem`
+    naming the user's flag for any value out of range.
+    """
+    from imgcut.runner import OptionError, SegmentOptions
+
+    fields = {f.name for f in dataclasses.fields(SegmentOptions)}
+    kwargs = {}
+    for name, value in params.items():
+        if name in _CONVERTERS:
+            field_name, convert = _CONVERTERS[name]
+            kwargs[field_name] = convert(value)
+        elif name in fields:
+            kwargs[name] = value
+    try:
+        return SegmentOptions(**kwargs)
+    except OptionError as exc:
+        raise UsageProblem(f"{FLAGS.get(exc.option, exc.option)} {exc.problem}") from exc
+
+
+def _segmentation_options(
+    *,
+    regions: Annotated[
+        str,
+        typer.Option(
+            "--regions",
+            "-k",
+            rich_help_panel=PANEL_CUT,
+            metavar="N|auto",
+            help="Number of regions to cut the image into, or 'auto' to keep splitting while "
+            "a cut with Ncut below --max-ncut exists.",
+        ),
+    ] = "8",
+    max_ncut: Annotated[
+        float | None,
+        typer.Option(
+            "--max-ncut",
+            rich_help_panel=PANEL_CUT,
+            help="Make no cut whose normalized-cut value is at or above this (0 < T ≤ 2; "
+            "recursive method).",
+        ),
+    ] = None,
+    method: Annotated[
+        str,
+        typer.Option(
+            "--method",
+            rich_help_panel=PANEL_CUT,
+            help="recursive: repeated two-way cuts, cheapest first; kway: one eigensolve and a "
+            "simultaneous partition.",
+        ),
+    ] = "recursive",
+    kway_method: Annotated[
+        str,
+        typer.Option(
+            "--kway-method",
+            rich_help_panel=PANEL_CUT,
+            help="With --method kway: discretize (Yu & Shi rotation) or kmeans.",
+        ),
+    ] = "discretize",
+    min_area: Annotated[
+        int | None,
+        typer.Option(
+            "--min-area",
+            rich_help_panel=PANEL_CUT,
+            help="Smallest region in pixels; smaller fragments merge into their most strongly "
+            "connected neighbour. Default: 0.1 % of the image.",
+        ),
+    ] = None,
+    connected: Annotated[
+        bool,
+        typer.Option(
+            "--connected/--classes",
+            rich_help_panel=PANEL_CUT,
+            help="Make every region one connected patch, or keep the raw cut classes.",
+        ),
+    ] = True,
+    radius: Annotated[
+        float | None,
+        typer.Option(
+            "--radius",
+            "-r",
+            rich_help_panel=PANEL_GRAPH,
+            show_default="5; 3 in objects mode",
+            help="Link pixels within this distance (pixels). Time and memory grow with r².",
+        ),
+    ] = None,
+    cue: Annotated[
+        str,
+        typer.Option(
+            "--cue",
+            rich_help_panel=PANEL_GRAPH,
+            help="Affinity: intensity (colour/brightness similarity × distance), contour "
+            "(intervening contour) or combined (their product).",
+        ),
+    ] = "combined",
+    sigma_feature: Annotated[
+        float | None,
+        typer.Option(
+            "--sigma-feature",
+            rich_help_panel=PANEL_GRAPH,
+            help="Scale of the intensity/colour difference; default from the image.",
+        ),
+    ] = None,
+    sigma_distance: Annotated[
+        float | None,
+        typer.Option(
+            "--sigma-distance",
+            rich_help_panel=PANEL_GRAPH,
+            help="Scale of the pixel distance; default from the radius.",
+        ),
+    ] = None,
+    sigma_edge: Annotated[
+        float | None,
+        typer.Option(
+            "--sigma-edge",
+            rich_help_panel=PANEL_GRAPH,
+            help="Scale of the edge strength crossed (contour cue); default from the image.",
+        ),
+    ] = None,
+    solver: Annotated[
+        str,
+        typer.Option(
+            "--solver",
+            rich_help_panel=PANEL_GRAPH,
+            help="Eigensolver: auto, lobpcg-amg, arpack or dense.",
+        ),
+    ] = "auto",
+    tol: Annotated[
+        float,
+        typer.Option("--tol", rich_help_panel=PANEL_GRAPH, help="Eigenvector residual tolerance."),
+    ] = 1e-5,
+    maxiter: Annotated[
+        int | None,
+        typer.Option("--maxiter", rich_help_panel=PANEL_GRAPH, help="Eigensolver iteration limit."),
+    ] = None,
+    n_eigenvectors: Annotated[
+        int | None,
+        typer.Option(
+            "--n-eigenvectors",
+            rich_help_panel=PANEL_GRAPH,
+            help="Eigenvectors solved on the whole image (default: 3 recursive, N k-way).",
+        ),
+    ] = None,
+    memory_budget: Annotated[
+        float | None,
+        typer.Option(
+            "--memory-budget",
+            rich_help_panel=PANEL_GRAPH,
+            metavar="GIB",
+            help="Refuse graphs whose estimated memory exceeds this many GiB (default 4).",
+        ),
+    ] = None,
+    seed: Annotated[
+        int,
+        typer.Option(
+            "--seed",
+            rich_help_panel=PANEL_GRAPH,
+            help="Seed of every random start; same image + options + seed = same labels.",
+        ),
+    ] = 0,
+    mode: Annotated[
+        str,
+        typer.Option(
+            "--mode",
+            rich_help_panel=PANEL_CUT,
+            help="What labels mean: regions (tile the whole image) or objects (bright objects "
+            "such as nuclei on a dark background, which stays label 0).",
+        ),
+    ] = "regions",
+    object_diameter: Annotated[
+        float | None,
+        typer.Option(
+            "--object-diameter",
+            rich_help_panel=PANEL_OBJECTS,
+            show_default="estimated",
+            help="Typical object diameter in pixels (micrometres with --pixel-size).",
+        ),
+    ] = None,
+    pixel_size: Annotated[
+        float | None,
+        typer.Option(
+            "--pixel-size",
+            rich_help_panel=PANEL_OBJECTS,
+            help="Pixel size in micrometres; --object-diameter is then in micrometres.",
+        ),
+    ] = None,
+    exclude_border: Annotated[
+        bool,
+        typer.Option(
+            "--exclude-border",
+            rich_help_panel=PANEL_OBJECTS,
+            help="Drop objects that touch the image border.",
+        ),
+    ] = False,
+    small_objects: Annotated[
+        str,
+        typer.Option(
+            "--small-objects",
+            rich_help_panel=PANEL_OBJECTS,
+            help="Debris below --min-area (default 30 here): drop, or merge into the touching "
+            "object.",
+        ),
+    ] = "drop",
+    foreground: Annotated[
+        str,
+        typer.Option(
+            "--foreground",
+            rich_help_panel=PANEL_OBJECTS,
+            help="Foreground threshold: ncut (two-way normalized cut on intensity) or otsu.",
+        ),
+    ] = "ncut",
+    channel: Annotated[
+        str | None,
+        typer.Option(
+            "--channel",
+            rich_help_panel=PANEL_INPUT,
+            metavar="I[,J…]",
+            help="Channels to segment, 0-based (e.g. 1 or 0,2). For a plain multi-page TIFF, "
+            "reads the pages as channels.",
+        ),
+    ] = None,
+    plane: Annotated[
+        str | None,
+        typer.Option(
+            "--plane",
+            rich_help_panel=PANEL_INPUT,
+            metavar="I|max",
+            help="Plane of a z-stack / time series (0-based), or 'max' for the maximum projection.",
+        ),
+    ] = None,
+    max_pixels: Annotated[
+        int,
+        typer.Option(
+            "--max-pixels",
+            rich_help_panel=PANEL_INPUT,
+            help="Refuse images with more pixels (height × width) than this, before decoding.",
+        ),
+    ] = 100_000_000,
+    label_format: Annotated[
+        str,
+        typer.Option(
+            "--label-format",
+            rich_help_panel=PANEL_OUTPUT,
+            help="png (8/16-bit) or tiff (for microscopy pipelines, up to 32-bit).",
+        ),
+    ] = "png",
+    fill: Annotated[
+        float | None,
+        typer.Option(
+            "--fill",
+            rich_help_panel=PANEL_OUTPUT,
+            metavar="OPACITY",
+            help="Wash each region of the overlay in its own colour at this opacity (0–1).",
+        ),
+    ] = None,
+    masks: Annotated[
+        bool,
+        typer.Option(
+            "--masks",
+            rich_help_panel=PANEL_OUTPUT,
+            help="Also write one binary PNG per region (NAME.masks/region-0001.png, …).",
+        ),
+    ] = False,
+    eigenvectors: Annotated[
+        bool,
+        typer.Option(
+            "--eigenvectors",
+            rich_help_panel=PANEL_OUTPUT,
+            help="Also write NAME.eigenvectors.png: the eigenvectors as colour-mapped panels.",
+        ),
+    ] = False,
+) -> None:
+    """The segmentation options of ``imgcut segment`` and ``imgcut batch`` (a signature only)."""
+
+
+def with_segmentation_options(
+    command: Callable[..., None], *, before: int | None = None
+) -> Callable[..., None]:
+    """``command`` with every segmentation option appended to its own parameters.
+
+    ``command`` takes its own parameters and ``**segment_params``; the returned function has
+    a signature typer can read (own parameters, then the shared ones, all keyword-only) and
+    passes the shared values on in ``**segment_params``. With ``before=n`` only the first
+    ``n`` own parameters come before the shared ones (the rest follow them).
+    """
+    own = [
+        p
+        for p in inspect.signature(command, eval_str=True).parameters.values()
+        if p.kind is not p.VAR_KEYWORD
+    ]
+    taken = {p.name for p in own}
+    shared = [
+        p
+        for p in inspect.signature(_segmentation_options, eval_str=True).parameters.values()
+        if p.kind is not p.VAR_KEYWORD and p.name not in taken
+    ]
+    cut = len(own) if before is None else before
+    params = [
+        p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in own[:cut] + shared + own[cut:]
+    ]
+
+    def run(**kwargs: Any) -> None:
+        own_kwargs = {k: v for k, v in kwargs.items() if k in taken}
+        segment_kwargs = {k: v for k, v in kwargs.items() if k not in taken}
+        command(**own_kwargs, **segment_kwargs)
+
+    run.__signature__ = inspect.Signature(params)  # type: ignore[attr-defined]
+    run.__annotations__ = {p.name: p.annotation for p in params}
+    run.__doc__ = command.__doc__
+    run.__name__ = command.__name__.lstrip("_")
+    run.__wrapped_command__ = command  # type: ignore[attr-defined]
+    return run
