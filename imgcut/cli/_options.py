@@ -15,12 +15,19 @@ from collections.abc import Callable
 from typing import Annotated, Any
 
 import typer
+from typer.core import TyperCommand
+
+try:  # typer ≥ 0.20 carries its own copy of click
+    from typer._click.exceptions import BadParameter, NoArgsIsHelpError, UsageError
+except ImportError:  # pragma: no cover - older typer builds on click itself
+    from click.exceptions import BadParameter, NoArgsIsHelpError, UsageError
 
 __all__ = [
     "EXIT_DATA",
     "EXIT_USAGE",
     "EXIT_INTERRUPTED",
     "FLAGS",
+    "OneLineErrors",
     "PANEL_CUT",
     "PANEL_GRAPH",
     "PANEL_INPUT",
@@ -90,6 +97,72 @@ def fail(command: str, message: object, code: int) -> typer.Exit:
     first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
     typer.echo(f"imgcut {command}: error: {first}", err=True)
     return typer.Exit(code)
+
+
+class OneLineErrors(TyperCommand):
+    """A command whose usage errors are one line on stderr with exit status 2.
+
+    A value typer cannot convert (``--radius abc``, ``--seed 1.5``), an unknown option, a
+    missing value: instead of the usage text and a boxed panel, one line
+    ``imgcut COMMAND: error: --radius must be a number, got 'abc'``, as for every other error
+    of the command line. ``--help`` and a command typed without arguments still show help.
+    """
+
+    def parse_args(self, ctx: Any, args: list[str]) -> list[str]:
+        try:
+            return super().parse_args(ctx, list(args))
+        except NoArgsIsHelpError:
+            raise
+        except UsageError as exc:
+            raise fail(self.name or "", _usage_message(self, exc, args), EXIT_USAGE) from None
+
+
+def _value_kind(command: Any, name: str | None) -> type | None:
+    """``int``, ``float`` or None: the Python type behind the parameter ``name``."""
+    import types
+    import typing
+
+    try:
+        annotation = inspect.signature(command.callback, eval_str=True).parameters[name].annotation
+    except (KeyError, TypeError, ValueError, NameError):
+        return None
+    if typing.get_origin(annotation) is Annotated:
+        annotation = typing.get_args(annotation)[0]
+    if typing.get_origin(annotation) in (typing.Union, types.UnionType):
+        inner = [a for a in typing.get_args(annotation) if a is not type(None)]
+        annotation = inner[0] if len(inner) == 1 else None
+    return annotation if annotation in (int, float) else None
+
+
+def _given_value(args: list[str], opts: list[str]) -> str | None:
+    """The last value typed for an option (``--x v``, ``--x=v``), or None."""
+    value = None
+    for i, token in enumerate(args):
+        for opt in opts:
+            if token == opt and i + 1 < len(args):
+                value = args[i + 1]
+            elif opt.startswith("--") and token.startswith(opt + "="):
+                value = token[len(opt) + 1 :]
+    return value
+
+
+def _usage_message(command: Any, exc: Any, args: list[str]) -> str:
+    """One line naming the option and the problem."""
+    param = getattr(exc, "param", None) if isinstance(exc, BadParameter) else None
+    opts = [o for o in getattr(param, "opts", []) if o.startswith("-")]
+    if not opts:
+        return " ".join(exc.format_message().split())
+    flag = max(opts, key=len)
+    value = _given_value(args, opts)
+    kind = _value_kind(command, param.name)
+    if value is not None and kind is not None:
+        try:
+            kind(value)
+        except ValueError:
+            what = "a whole number" if kind is int else "a number"
+            return f"{flag} must be {what}, got {value!r}"
+    problem = " ".join(str(exc.message).split()).rstrip(".")
+    return f"{flag}: {problem}" + (f", got {value!r}" if value is not None else "")
 
 
 def _count_or_word(text: str, flag: str, rule: str, low: int, word: str) -> int | str:

@@ -240,6 +240,6 @@ def _terminate_as_interrupt() -> Iterator[None]:
         signal.signal(signal.SIGTERM, previous)
 
 
-batch_command = app.command("batch", no_args_is_help=True)(
+batch_command = app.command("batch", no_args_is_help=True, cls=opt.OneLineErrors)(
     opt.with_segmentation_options(_batch_command)
 )

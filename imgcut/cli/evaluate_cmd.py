@@ -17,7 +17,7 @@ from typing import Annotated, Any
 import typer
 
 from imgcut.cli._app import app
-from imgcut.cli._options import EXIT_DATA, EXIT_INTERRUPTED, EXIT_USAGE, fail
+from imgcut.cli._options import EXIT_DATA, EXIT_INTERRUPTED, EXIT_USAGE, OneLineErrors, fail
 from imgcut.cli._progress import CountingBar
 
 __all__ = ["evaluate_command", "score_command", "EXIT_DATA", "EXIT_USAGE"]
@@ -66,7 +66,7 @@ class _Bar(CountingBar):
             self.say(f"[{self.n}/{self.total}] {name} {'failed' if error else 'ok'}")
 
 
-@app.command("evaluate", no_args_is_help=True)
+@app.command("evaluate", no_args_is_help=True, cls=OneLineErrors)
 def evaluate_command(
     data_dir: Annotated[
         Path,
@@ -217,7 +217,7 @@ def _jsonable(d: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
-@app.command("score", no_args_is_help=True)
+@app.command("score", no_args_is_help=True, cls=OneLineErrors)
 def score_command(
     segmentation: Annotated[
         Path, typer.Argument(help="Label image to score (PNG/TIFF/.npy; 0 = no region).")

@@ -136,6 +136,6 @@ def _summary(report: Any, *, to_stderr: bool) -> None:
         console.print(f"  {kind:<{width}}  {path}{'/' if kind == 'masks' else ''}", markup=False)
 
 
-segment_command = app.command("segment", no_args_is_help=True)(
+segment_command = app.command("segment", no_args_is_help=True, cls=opt.OneLineErrors)(
     opt.with_segmentation_options(_segment_command, before=1)
 )
