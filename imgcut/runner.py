@@ -44,6 +44,9 @@ __all__ = [
     "SMALL_OBJECTS",
     "FOREGROUNDS",
     "AUTO_REGION_CAP",
+    "AUTO_MAX_NCUT",
+    "SCALES",
+    "DEFAULT_SCALE",
     "OptionError",
     "SegmentOptions",
     "ComputedImage",
@@ -74,6 +77,13 @@ KWAY_METHODS = ("discretize", "kmeans")
 #: Region cap of the automatic count (n_regions=None): the max_ncut threshold normally
 #: stops the recursive splitting long before.
 AUTO_REGION_CAP = 64
+#: Ncut threshold of the automatic count (n_regions=None, recursive method) when no max_ncut is
+#: given. A rule of thumb of this project, not a published value: Ncut = cut/assoc(A) +
+#: cut/assoc(B) (Shi & Malik 2000, eq. 2), so below 0.01 each side sends on average under
+#: 0.5 % of its affinity across the cut. Measured on our sample images at the default radius,
+#: cuts along object outlines cost 0–0.01 and cuts through one shaded or textured area
+#: 0.01–0.06 (scene.png and nuclei.tif, half size; see docs/cli.md).
+AUTO_MAX_NCUT = 0.01
 
 _RECORD_FORMAT = 1  # bump when the layout of name.json changes
 
@@ -94,6 +104,22 @@ class OptionError(ValueError):
         return (type(self), (self.option, self.problem))
 
 
+def _scales() -> tuple[str, ...]:
+    try:
+        from imgcut.segment import SCALES as scales
+    except ImportError:  # pragma: no cover - the segment module ships with imgcut
+        return ("single",)
+    return tuple(scales)
+
+
+#: Values of ``scale`` (read from :data:`imgcut.segment.SCALES` when this module loads):
+#: ``"single"`` one pixel graph, ``"multi"`` the multiscale pencil (k-way only), and any
+#: value the library adds.
+SCALES: tuple[str, ...] = _scales()
+#: ``"auto"`` when the library offers it (it then picks the scale per image), else ``"single"``.
+DEFAULT_SCALE = "auto" if "auto" in SCALES else "single"
+
+
 def _solvers() -> tuple[str, ...]:
     try:
         from imgcut.spectral import SOLVERS
@@ -108,10 +134,11 @@ class SegmentOptions:
 
     ``mode="regions"`` (passed to :func:`imgcut.segment.segment`, which documents each):
     ``n_regions`` (None = automatic: split while a cut below ``max_ncut`` exists, up to
-    `AUTO_REGION_CAP`), ``max_ncut`` (recursive method only), ``method``, ``kway_method``,
+    `AUTO_REGION_CAP`; ``max_ncut`` then defaults to `AUTO_MAX_NCUT`), ``max_ncut``
+    (recursive method only), ``method``, ``kway_method``,
     ``radius``, ``cue``, ``sigma_feature``, ``sigma_distance``, ``sigma_edge``, ``min_area``,
     ``connected``, ``solver``, ``tol``, ``maxiter``, ``seed``, ``n_eigenvectors``,
-    ``memory_budget`` (bytes).
+    ``memory_budget`` (bytes), ``scale`` (one of `SCALES`; ``"multi"`` needs method kway).
     ``mode="objects"`` (passed to :func:`imgcut.objects.segment_objects`): ``object_diameter``,
     ``pixel_size``, ``min_area``, ``small_objects``, ``exclude_border``, ``foreground``,
     ``max_ncut``, ``radius``, ``seed``; the other segmentation fields are not used.
@@ -152,6 +179,7 @@ class SegmentOptions:
     seed: int | None = 0
     n_eigenvectors: int | None = None
     memory_budget: int | None = None
+    scale: str = DEFAULT_SCALE
     mode: str = "regions"
     object_diameter: float | None = None
     pixel_size: float | None = None
@@ -170,6 +198,13 @@ class SegmentOptions:
         if self.channel is not None and not isinstance(self.channel, tuple):
             ch = self.channel
             object.__setattr__(self, "channel", (ch,) if isinstance(ch, int) else tuple(ch))
+        if (
+            self.n_regions is None
+            and self.max_ncut is None
+            and self.mode == "regions"
+            and self.method == "recursive"
+        ):  # the automatic count stops at a threshold: the default one, stored with the options
+            object.__setattr__(self, "max_ncut", AUTO_MAX_NCUT)
         _check(self)
 
     def segment_kwargs(self) -> dict[str, Any]:
@@ -203,6 +238,7 @@ class SegmentOptions:
                 "maxiter": self.maxiter,
                 "seed": self.seed,
                 "n_eigenvectors": self.n_eigenvectors,
+                "scale": self.scale,
             }
             optional = {"radius": self.radius, "memory_budget": self.memory_budget}
         kwargs.update({k: v for k, v in optional.items() if v is not None})
@@ -249,9 +285,10 @@ def _check(o: SegmentOptions) -> None:
 
     if o.n_regions is None:
         need(
-            o.max_ncut is not None,
+            o.max_ncut is not None or o.mode != "regions",
             "n_regions",
-            "a count ≥ 1, or automatic together with a max_ncut threshold",
+            "a count ≥ 1 with method kway (the automatic count needs method recursive and its "
+            "max_ncut threshold)",
             None,
         )
     else:
@@ -312,6 +349,14 @@ def _check(o: SegmentOptions) -> None:
         "a number of bytes ≥ 1",
         o.memory_budget,
     )
+    choice("scale", SCALES)
+    if o.scale == "multi" and (o.mode != "regions" or o.method != "kway"):
+        what = f"mode {o.mode}" if o.mode != "regions" else f"method {o.method}"
+        raise OptionError(
+            "scale",
+            f"multi needs mode regions with method kway (the multiscale eigenvectors are "
+            f"partitioned k-way in one step), got {what}",
+        )
     choice("mode", MODES)
     choice("small_objects", SMALL_OBJECTS)
     choice("foreground", FOREGROUNDS)

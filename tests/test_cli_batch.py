@@ -253,3 +253,19 @@ def test_unreachable_scheduler_is_one_line_exit_1(tmp_path, monkeypatch):
         "Timed out trying to connect to tcp://127.0.0.1:9 after 30 s"
     )
     assert "Traceback" not in result.output
+
+
+def test_scale_is_part_of_the_batch_fingerprint(tmp_path):
+    src = _folder(tmp_path, 1)
+    out = tmp_path / "out"
+    kway = [*FAST, "--method", "kway", "-j", "1", "--no-gallery"]
+    first = runner.invoke(app, ["batch", str(src), "--out", str(out), *kway, "--scale", "single"])
+    assert first.exit_code == 0, first.output
+    same = runner.invoke(app, ["batch", str(src), "--out", str(out), *kway, "--scale", "single"])
+    assert "0 done, 1 already up to date" in same.output
+    other = runner.invoke(app, ["batch", str(src), "--out", str(out), *kway, "--scale", "multi"])
+    assert "1 done, 0 already up to date" in other.output, other.output
+    record = json.loads((out / "f0.json").read_text())
+    assert record["options"]["scale"] == "multi"
+    refused = runner.invoke(app, ["batch", str(src), "--out", str(out), "--scale", "multi"])
+    assert refused.exit_code == 2 and "--scale multi needs" in refused.output

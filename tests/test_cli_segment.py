@@ -301,7 +301,7 @@ def test_existing_outputs_are_refused_without_overwrite(work):
     [
         (["-k", "0"], ["--regions must be a count ≥ 1 or 'auto', got 0"]),
         (["-k", "many"], ["--regions must be a count ≥ 1 or 'auto'"]),
-        (["-k", "auto"], ["--regions", "max_ncut threshold"]),
+        (["-k", "auto", "--method", "kway"], ["--regions", "needs method recursive"]),
         (["--radius", "0"], ["--radius must be > 0"]),
         (["--radius", "-3"], ["--radius must be > 0"]),
         (["--method", "spectral"], ["--method must be one of recursive, kway"]),
@@ -435,3 +435,76 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
         np.testing.assert_array_equal(np.asarray(Image.open(mask_path)) > 0, labels == k)
     Image.open(out["eigenvectors"]).load()  # decodes
     assert f"scene.png: {direct.n_regions} regions" in stdout
+
+
+# ---------------------------------------------------------------------------------------------
+# --scale
+
+
+def test_scale_option_lists_the_library_values_and_its_default():
+    import typer
+
+    from imgcut.segment import SCALES
+
+    command = typer.main.get_command(app).commands["segment"]
+    (param,) = [p for p in command.params if "--scale" in p.opts]
+    assert param.default == ("auto" if "auto" in SCALES else "single")
+    for value in SCALES:  # the help is built from imgcut.segment.SCALES
+        assert f"{value}:" in param.help
+
+
+def test_scale_multi_runs_kway_and_is_recorded(work):
+    result = run(
+        work / "halves.png", "-o", work / "o", "--method", "kway", "--scale", "multi", *FAST
+    )
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "o" / "halves.json").read_text())
+    assert rec["options"]["scale"] == "multi"
+    assert rec["segmentation"]["params"]["scale"] == "multi"  # what the library ran
+    assert (
+        rec["options_fingerprint"]
+        == SegmentOptions(n_regions=2, radius=2.0, method="kway", scale="multi").fingerprint()
+    )
+
+
+@pytest.mark.parametrize(
+    "args, fragment",
+    [
+        (["--scale", "multi"], "--scale multi needs mode regions with method kway"),
+        (["--scale", "multi", "--mode", "objects"], "got mode objects"),
+        (["--scale", "tiny"], "--scale must be one of single, multi"),
+    ],
+)
+def test_scale_refusals_are_one_line_usage_errors(work, args, fragment):
+    before = snapshot(work)
+    assert_one_line_error(run(work / "halves.png", "-o", work / "o", *args), 2, fragment)
+    assert snapshot(work) == before
+
+
+# ---------------------------------------------------------------------------------------------
+# --regions auto
+
+
+def _bands() -> np.ndarray:
+    """Three flat vertical bands (grey 20, 120, 220) with ±4 noise: three regions."""
+    rng = np.random.default_rng(1)
+    img = np.repeat(np.array([20.0, 120.0, 220.0]), 10)[None, :].repeat(24, axis=0)
+    return (img + rng.uniform(-4, 4, img.shape)).astype(np.uint8)
+
+
+def test_regions_auto_without_max_ncut_uses_the_documented_threshold(work):
+    from imgcut.runner import AUTO_MAX_NCUT
+
+    Image.fromarray(_bands()).save(work / "bands.png")
+    result = run(work / "bands.png", "-o", work / "o", "-k", "auto", "--radius", "2")
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "o" / "bands.json").read_text())
+    assert rec["options"]["n_regions"] is None and rec["options"]["max_ncut"] == AUTO_MAX_NCUT
+    # the three bands are found; every cut made is below the threshold and the cheapest cut
+    # inside one flat 24 x 10 band is not (its Ncut is far above 0.01)
+    assert rec["result"]["regions"] == 3
+    assert all(split["ncut"] < AUTO_MAX_NCUT for split in rec["segmentation"]["splits"])
+    labels = np.asarray(Image.open(work / "o" / "bands.labels.png"))
+    assert [len(np.unique(labels[:, 10 * i : 10 * i + 10])) for i in range(3)] == [1, 1, 1]
+    help_text = " ".join(CliRunner().invoke(app, ["segment", "--help"]).stdout.split())
+    assert f"default threshold {AUTO_MAX_NCUT:g}" in help_text.replace("│ ", "")

@@ -59,7 +59,7 @@ def _listing(folder):
     "kwargs, option, text",
     [
         ({"n_regions": 0}, "n_regions", "an integer ≥ 1"),
-        ({"n_regions": None}, "n_regions", "max_ncut threshold"),
+        ({"n_regions": None, "method": "kway"}, "n_regions", "needs method recursive"),
         ({"radius": 0}, "radius", "> 0"),
         ({"radius": -2.0}, "radius", "> 0"),
         ({"radius": float("nan")}, "radius", "> 0"),
@@ -86,6 +86,9 @@ def _listing(folder):
         ({"plane": -1}, "plane", "index ≥ 0 or 'max'"),
         ({"channel": (0, -1)}, "channel", "indices ≥ 0"),
         ({"max_pixels": 0}, "max_pixels", "≥ 1"),
+        ({"scale": "huge"}, "scale", "one of " + ", ".join(runner.SCALES)),
+        ({"scale": "multi"}, "scale", "method kway"),
+        ({"scale": "multi", "method": "kway", "mode": "objects"}, "scale", "mode objects"),
     ],
 )
 def test_bad_options_name_the_option_and_the_valid_values(kwargs, option, text):
@@ -149,6 +152,7 @@ def test_fingerprint_is_stable_and_sensitive_to_every_field():
         "fill": 0.5,
         "masks": True,
         "eigenvectors": True,
+        "scale": "multi",
     }
     seen = {options_fingerprint(base)}
     for name, value in changed.items():
@@ -157,9 +161,29 @@ def test_fingerprint_is_stable_and_sensitive_to_every_field():
             fields["method"] = "recursive"
         if name == "eigenvectors":
             fields["mode"] = "regions"
+        if name == "scale":  # multi needs k-way; it must differ from the "method": "kway" entry
+            fields["method"] = "kway"
         fields["channel"] = None if fields["channel"] is None else tuple(fields["channel"])
         seen.add(options_fingerprint(SegmentOptions(**fields)))
     assert len(seen) == len(changed) + 1
+
+
+def test_automatic_count_gets_the_default_threshold():
+    auto = SegmentOptions(n_regions=None)
+    assert auto.max_ncut == runner.AUTO_MAX_NCUT and auto.segment_kwargs()["max_ncut"] == 0.01
+    assert SegmentOptions(n_regions=None, max_ncut=0.3).max_ncut == 0.3  # an explicit one wins
+    assert SegmentOptions(n_regions=4).max_ncut is None  # a fixed count needs no threshold
+
+
+def test_scale_values_and_default_come_from_the_library():
+    from imgcut.segment import SCALES
+
+    assert runner.SCALES == tuple(SCALES)
+    assert runner.DEFAULT_SCALE == ("auto" if "auto" in runner.SCALES else "single")
+    assert SegmentOptions().scale == runner.DEFAULT_SCALE
+    kwargs = SegmentOptions(method="kway", n_regions=2, scale="multi").segment_kwargs()
+    assert kwargs["scale"] == "multi" and kwargs["method"] == "kway"
+    assert "scale" not in SegmentOptions(mode="objects").segment_kwargs()
 
 
 def test_input_sha256_matches_the_standard_vector(tmp_path):

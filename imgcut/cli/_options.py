@@ -17,6 +17,8 @@ from typing import Annotated, Any
 import typer
 from typer.core import TyperCommand
 
+from imgcut.runner import AUTO_MAX_NCUT, DEFAULT_SCALE, SCALES
+
 try:  # typer ≥ 0.20 carries its own copy of click
     from typer._click.exceptions import BadParameter, NoArgsIsHelpError, UsageError
 except ImportError:  # pragma: no cover - older typer builds on click itself
@@ -66,6 +68,7 @@ FLAGS = {
     "seed": "--seed",
     "n_eigenvectors": "--n-eigenvectors",
     "memory_budget": "--memory-budget",
+    "scale": "--scale",
     "mode": "--mode",
     "object_diameter": "--object-diameter",
     "pixel_size": "--pixel-size",
@@ -86,6 +89,19 @@ PANEL_CUT = "Partition"
 PANEL_INPUT = "Input"
 PANEL_OBJECTS = "Objects mode (fluorescence nuclei)"
 PANEL_OUTPUT = "Output"
+
+
+_SCALE_MEANING = {
+    "single": "one pixel graph of the given --radius",
+    "multi": "coarse-to-fine multiscale graph, less time and memory on large images "
+    "(--method kway only)",
+    "auto": "chosen per image by the library",
+}
+_SCALE_HELP = (
+    "Graph scale: "
+    + "; ".join(f"{name}: {_SCALE_MEANING.get(name, 'see imgcut.segment')}" for name in SCALES)
+    + "."
+)
 
 
 class UsageProblem(Exception):
@@ -255,7 +271,8 @@ def _segmentation_options(
             rich_help_panel=PANEL_CUT,
             metavar="N|auto",
             help="Number of regions to cut the image into, or 'auto' to keep splitting while "
-            "a cut with Ncut below --max-ncut exists.",
+            "a cut with Ncut below --max-ncut exists (default threshold "
+            f"{AUTO_MAX_NCUT:g}, a rule of thumb: see docs/cli.md).",
         ),
     ] = "8",
     max_ncut: Annotated[
@@ -264,7 +281,7 @@ def _segmentation_options(
             "--max-ncut",
             rich_help_panel=PANEL_CUT,
             help="Make no cut whose normalized-cut value is at or above this (0 < T ≤ 2; "
-            "recursive method).",
+            f"recursive method; {AUTO_MAX_NCUT:g} with --regions auto).",
         ),
     ] = None,
     method: Annotated[
@@ -352,6 +369,14 @@ def _segmentation_options(
             help="Eigensolver: auto, lobpcg-amg, arpack or dense.",
         ),
     ] = "auto",
+    scale: Annotated[
+        str,
+        typer.Option(
+            "--scale",
+            rich_help_panel=PANEL_GRAPH,
+            help=_SCALE_HELP,
+        ),
+    ] = DEFAULT_SCALE,
     tol: Annotated[
         float,
         typer.Option("--tol", rich_help_panel=PANEL_GRAPH, help="Eigenvector residual tolerance."),
