@@ -229,8 +229,8 @@ def _border_pairs(labels: np.ndarray):
     return cat
 
 
-def _border_strength(labels, boundary, tensor, min_arc_pixels=4):
-    """Per RAG edge: mean strength along the border; optionally with oriented strength."""
+def _border_strength(labels, boundary, tensor, min_arc_pixels=4, power=1.0):
+    """Per RAG edge: sum of ``strength**power`` along the border (oriented if a tensor is given)."""
     la, lb, pa, pb, axis = _border_pairs(labels)
     lo = np.minimum(la, lb).astype(np.int64) - 1
     hi = np.maximum(la, lb).astype(np.int64) - 1
@@ -265,6 +265,8 @@ def _border_strength(labels, boundary, tensor, min_arc_pixels=4):
         from .cues import oriented_strength
 
         val = 0.5 * (oriented_strength(tf[:, pa], ang) + oriented_strength(tf[:, pb], ang))
+    if power != 1.0:
+        val = val**power
     total = np.bincount(inv, weights=val, minlength=m)
     return edges, total, count
 
@@ -275,6 +277,9 @@ def merge_regions(
     *,
     tensor: np.ndarray | None = None,
     min_area: int = 0,
+    size_scale: float = 0.0,
+    size_power: float = 0.5,
+    strength_power: float = 1.0,
 ) -> RegionHierarchy:
     """Greedy merging of adjacent regions by mean boundary strength along their common border.
 
@@ -292,6 +297,17 @@ def merge_regions(
         Regions smaller than this many pixels are merged first (at level 0, into the neighbour
         with the weakest border), whatever their border strength: thin slivers that the
         watershed leaves along thick boundary ridges never survive to coarse levels.
+    size_scale : float, default 0
+        Region-size term: ``a₀`` as a fraction of the image area (0 switches it off).  A
+        border's merge score is multiplied by ``(a / (a + a₀))^size_power`` with ``a`` the area
+        of the smaller of its two regions, so regions much smaller than ``a₀`` merge earlier
+        than their border strength alone says, and large regions are ranked by strength alone.
+    size_power : float, default 0.5
+        Exponent γ of the size term.
+    strength_power : float, default 1
+        Exponent ``p`` of the power mean of the border strength: the score of a border is
+        ``(mean of s**p)**(1/p)`` over its pixel pairs (``p = 1``: the plain mean; ``p < 1``
+        lets a few strong pixels count less than a long weak stretch).
 
     Returns
     -------
@@ -305,15 +321,25 @@ def merge_regions(
     Notes
     -----
     Merging runs on the region adjacency graph with a binary heap: pop the border of smallest
-    mean strength ``Σ s / Σ 1``, merge its two regions, add the border sums and counts of the
-    merged region's neighbours (Arbelaez et al. 2011, §4.2).  The level of a merge is the running
-    maximum of the popped means, so levels are non-decreasing and the border levels form an
-    ultrametric.  Cost: ``O(m log m)`` for ``m`` borders; the loop is over regions, never pixels.
+    score, merge its two regions, add the border sums and counts of the merged region's
+    neighbours (Arbelaez et al. 2011, §4.2).  The score of a border ``B`` between regions ``R``
+    and ``R'`` is
+
+    ``d(B) = (Σ_B s^p / |B|)^(1/p) · (a / (a + a₀))^γ``,  ``a = min(|R|, |R'|)``,
+
+    the mean boundary strength along the shared border (``p = 1``, ``a₀ = 0``: the ultrametric
+    contour map of Arbelaez et al. 2011) times a region-size factor in the spirit of the
+    size-dependent merge predicate of Felzenszwalb & Huttenlocher (2004), where small regions
+    need less evidence to merge.  The level of a merge is the running maximum of the popped
+    scores, so levels are non-decreasing and the border levels form an ultrametric.  Cost:
+    ``O(m log m)`` for ``m`` borders; the loop is over regions, never pixels.
 
     References
     ----------
     P. Arbelaez, M. Maire, C. Fowlkes, J. Malik, "Contour detection and hierarchical image
     segmentation", IEEE TPAMI 33(5):898–916, 2011.
+    P. F. Felzenszwalb, D. P. Huttenlocher, "Efficient graph-based image segmentation", IJCV
+    59(2):167–181, 2004.
 
     Examples
     --------
@@ -334,19 +360,34 @@ def merge_regions(
         raise ValueError(f"tensor must have shape (3, H, W) = {(3,) + lab.shape}")
     if lab.size and lab.min() < 1:
         raise ValueError("labels must be >= 1 everywhere (every pixel in a region)")
+    if not (np.isfinite(size_scale) and size_scale >= 0):
+        raise ValueError(f"size_scale must be a finite number >= 0; got {size_scale}")
+    if not (np.isfinite(size_power) and size_power >= 0):
+        raise ValueError(f"size_power must be a finite number >= 0; got {size_power}")
+    if not (np.isfinite(strength_power) and strength_power > 0):
+        raise ValueError(f"strength_power must be a finite number > 0; got {strength_power}")
     base = _renumber(lab)
     n = int(base.max())
-    edges, total, count = _border_strength(base, bnd, tensor)
+    p = float(strength_power)
+    edges, total, count = _border_strength(base, bnd, tensor, power=p)
     m = len(edges)
-    strength = total / np.maximum(count, 1)
+    strength = (total / np.maximum(count, 1)) ** (1.0 / p)
     levels = np.zeros(m, dtype=np.float64)
     area = np.bincount(base.ravel() - 1, minlength=n).astype(np.int64)
     small = float(min_area)
+    a0 = float(size_scale) * lab.size
+    gamma = float(size_power) if a0 > 0 else 0.0
+    size_dependent = gamma > 0 or small > 0
 
     def key(rec, i, j):
-        # regions below min_area merge first (keys below 0, i.e. under every level >= 0)
-        b = rec[0] / rec[1]
-        return b - 2.0 if (area[i] < small or area[j] < small) else b
+        # power mean of the border strength (p = 1: Arbelaez et al. 2011, §4.2)
+        b = (rec[0] / rec[1]) ** (1.0 / p)
+        a = min(area[i], area[j])
+        if a < small:  # regions below min_area merge first (keys < 0, under every level >= 0)
+            return b - 2.0
+        if gamma:  # region-size factor (a / (a + a0))^gamma, see Notes
+            b *= (a / (a + a0)) ** gamma
+        return b
 
     # adjacency: region -> {neighbour: [sum, count, list of base-edge ids, heap key]}
     adj: list[dict[int, list]] = [dict() for _ in range(n)]
@@ -375,7 +416,6 @@ def merge_regions(
         # merge the smaller neighbourhood into the larger (i survives)
         if len(adj[i]) < len(adj[j]):
             i, j = j, i
-        was_small = area[i] < small
         area[i] += area[j]
         del adj[i][j]
         del adj[j][i]
@@ -389,9 +429,8 @@ def merge_regions(
                 ri[0] += rk[0]
                 ri[1] += rk[1]
                 ri[2].extend(rk[2])
-        # re-key the borders whose sums changed (all of them if i stopped being small)
-        grew = was_small and area[i] >= small
-        for k in list(adj[i]) if grew else list(adj[j]):
+        # re-key the borders whose sums changed, or all of i's if its area enters the key
+        for k in list(adj[i]) if size_dependent else list(adj[j]):
             rk = adj[i][k]
             rk[3] = key(rk, i, k)
             a, b = (i, k) if i < k else (k, i)
@@ -498,6 +537,12 @@ def image_hierarchy(
     gb = global_boundary(image, preset=p, seed=seed)
     base = oversegment(gb.strength, smooth=p.watershed_smooth)
     h = merge_regions(
-        base, gb.strength, tensor=gb.tensor if p.oriented else None, min_area=p.min_area
+        base,
+        gb.strength,
+        tensor=gb.tensor if p.oriented else None,
+        min_area=p.min_area,
+        size_scale=p.size_scale,
+        size_power=p.size_power,
+        strength_power=p.strength_power,
     )
     return replace(h, boundary=gb.strength, default_level=p.default_level)

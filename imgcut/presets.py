@@ -48,6 +48,13 @@ class BoundaryPreset:
         σ of the smoothing before the watershed over-segmentation.
     min_area : int
         Regions under this many pixels are merged first (:func:`imgcut.hierarchy.merge_regions`).
+    size_scale : float
+        Region-size term of the merge score, ``a₀`` as a fraction of the image area (0: off;
+        :func:`imgcut.hierarchy.merge_regions`).
+    size_power : float
+        Exponent γ of the region-size term.
+    strength_power : float
+        Exponent ``p`` of the power mean of the border strength (1: plain mean).
     oriented : bool
         Measure each border across its own orientation (oriented watershed arcs).
     default_level : float
@@ -77,6 +84,9 @@ class BoundaryPreset:
     spectral_downsample: int = 2
     watershed_smooth: float = 1.0
     min_area: int = 0
+    size_scale: float = 0.0
+    size_power: float = 0.5
+    strength_power: float = 1.0
     oriented: bool = True
     default_level: float = 0.65
     level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(6, 19))

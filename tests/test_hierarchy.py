@@ -160,3 +160,51 @@ def test_image_hierarchy_pipeline_on_a_synthetic_photo():
         assert len(np.unique(lab[sl])) == 1
     again = hierarchy.image_hierarchy(img, preset="photo", seed=0)
     np.testing.assert_array_equal(again.labels_at(), lab)
+
+
+def test_size_term_merges_a_small_region_before_a_weaker_border_between_large_ones():
+    # Two halves (border 0.5) and a 3 x 3 region inside the left half (border 0.6).  Plain mean
+    # strength merges the halves first; with the region-size factor (a / (a + a0))^γ the small
+    # region's score is 0.6 * sqrt(9 / (9 + a0)) (closed form of the merge score, see
+    # merge_regions Notes), below 0.5, so it merges first at exactly that level.
+    lab = np.ones((30, 30), int)
+    lab[:, 15:] = 2
+    lab[5:8, 5:8] = 3
+    b = np.zeros(lab.shape)
+    b[:, 14:16] = 0.5
+    ring = np.zeros(lab.shape, bool)
+    ring[4:9, 4:9] = True
+    b[ring] = 0.6
+    plain = hierarchy.merge_regions(lab, b)
+    assert plain.merge_levels.tolist() == pytest.approx([0.5, 0.6])
+    a0 = 90.0
+    h = hierarchy.merge_regions(lab, b, size_scale=a0 / lab.size, size_power=0.5)
+    assert h.merge_levels[0] == pytest.approx(0.6 * np.sqrt(9 / (9 + a0)))
+    assert h.n_regions_at(0.4) == 2  # the small region is gone, the halves are not
+    assert np.all(np.diff(h.merge_levels) >= 0)
+    # then the two 450-px halves merge at 0.5 times the size factor of 450 px
+    big = 450
+    assert h.merge_levels[1] == pytest.approx(0.5 * np.sqrt(big / (big + a0)))
+
+
+def test_strength_power_is_a_power_mean_along_the_border():
+    # Border pixel pairs alternate between strength 0.04 and 0.64: the plain mean is 0.34, the
+    # power mean with p = 1/2 is ((0.2 + 0.8) / 2)^2 = 0.25 (definition of the power mean).
+    lab = np.repeat(np.array([[1, 2]]), 8, axis=0).repeat(4, axis=1)
+    b = np.zeros(lab.shape)
+    b[:, 3:5] = np.where(np.arange(8) % 2 == 0, 0.04, 0.64)[:, None]
+    assert hierarchy.merge_regions(lab, b).merge_levels[0] == pytest.approx(0.34)
+    h = hierarchy.merge_regions(lab, b, strength_power=0.5)
+    assert h.merge_levels[0] == pytest.approx(0.25)
+    assert h.edge_strength[0] == pytest.approx(0.25)
+
+
+def test_merge_options_are_validated():
+    lab, b = _three_strips()
+    for kw, msg in (
+        ({"size_scale": -0.1}, "size_scale"),
+        ({"size_power": -1.0}, "size_power"),
+        ({"strength_power": 0.0}, "strength_power"),
+    ):
+        with pytest.raises(ValueError, match=msg):
+            hierarchy.merge_regions(lab, b, **kw)
