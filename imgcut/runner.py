@@ -45,6 +45,8 @@ __all__ = [
     "FOREGROUNDS",
     "AUTO_REGION_CAP",
     "AUTO_MAX_NCUT",
+    "BOUNDARY_PRESET",
+    "choose_method",
     "SCALES",
     "DEFAULT_SCALE",
     "OptionError",
@@ -61,8 +63,33 @@ __all__ = [
     "options_fingerprint",
 ]
 
-#: Partition methods: recursive two-way normalized cuts, or simultaneous k-way.
-METHODS = ("recursive", "kway")
+#: Region methods: ``auto`` (``boundary`` for 3-channel colour images, else ``recursive``; see
+#: :func:`choose_method`), recursive two-way normalized cuts, simultaneous k-way, or
+#: ``boundary``: the region hierarchy of :func:`imgcut.hierarchy.image_hierarchy` (boundary
+#: strength from brightness, colour and texture gradients, watershed, greedy merging).
+METHODS = ("auto", "recursive", "kway", "boundary")
+#: Preset of the boundary method (:mod:`imgcut.presets`), tuned on BSDS500 train photographs.
+BOUNDARY_PRESET = "photo"
+# options only the pixel-graph methods (recursive, kway) use: set away from their defaults,
+# they keep ``auto`` on a graph method and are refused by ``boundary``
+_GRAPH_ONLY = (
+    "max_ncut",
+    "kway_method",
+    "radius",
+    "cue",
+    "sigma_feature",
+    "sigma_distance",
+    "sigma_edge",
+    "min_area",
+    "connected",
+    "solver",
+    "tol",
+    "maxiter",
+    "n_eigenvectors",
+    "memory_budget",
+    "scale",
+    "eigenvectors",
+)
 #: Affinity cues: intensity/colour similarity, intervening contour, or their product.
 CUES = ("combined", "intensity", "contour")
 #: What the labels mean: ``regions`` tile the whole image (:func:`imgcut.segment.segment`);
@@ -164,7 +191,7 @@ class SegmentOptions:
 
     n_regions: int | None = 8
     max_ncut: float | None = None
-    method: str = "recursive"
+    method: str = "auto"
     kway_method: str = "discretize"
     radius: float | None = None
     cue: str = "combined"
@@ -207,10 +234,21 @@ class SegmentOptions:
             object.__setattr__(self, "max_ncut", AUTO_MAX_NCUT)
         _check(self)
 
-    def segment_kwargs(self) -> dict[str, Any]:
+    def graph_options_set(self) -> list[str]:
+        """Names of the options only the pixel-graph methods use that differ from their
+        defaults (they keep ``method="auto"`` on a graph method)."""
+        defaults = {f.name: f.default for f in dataclasses.fields(self)}
+        return [name for name in _GRAPH_ONLY if getattr(self, name) != defaults[name]]
+
+    def segment_kwargs(self, method: str | None = None) -> dict[str, Any]:
         """Keyword arguments for the library function of the mode: :func:`imgcut.segment.segment`
         (regions) or :func:`imgcut.objects.segment_objects` (objects). Unset (None) options
-        are left out, so the library's defaults apply."""
+        are left out, so the library's defaults apply.
+
+        ``method`` is the method chosen for the image (:func:`choose_method`); by default
+        ``self.method``, with ``"auto"`` taken as ``"recursive"`` (its choice for any image
+        that is not 3-channel colour). With the automatic count (``n_regions=None``) and no
+        ``max_ncut``, recursive cuts stop at `AUTO_MAX_NCUT`."""
         if self.mode == "objects":
             kwargs: dict[str, Any] = {
                 "object_diameter": self.object_diameter,
@@ -222,15 +260,22 @@ class SegmentOptions:
             }
             optional = {"min_area": self.min_area, "max_ncut": self.max_ncut, "radius": self.radius}
         else:
+            method = method or self.method
+            method = "recursive" if method == "auto" else method
+            if method == "boundary":
+                raise ValueError("method 'boundary' does not call imgcut.segment.segment")
+            max_ncut = self.max_ncut
+            if self.n_regions is None and max_ncut is None and method == "recursive":
+                max_ncut = AUTO_MAX_NCUT
             kwargs = {
                 "n_regions": AUTO_REGION_CAP if self.n_regions is None else self.n_regions,
-                "method": self.method,
+                "method": method,
                 "kway_method": self.kway_method,
                 "cue": self.cue,
                 "sigma_feature": self.sigma_feature,
                 "sigma_distance": self.sigma_distance,
                 "sigma_edge": self.sigma_edge,
-                "max_ncut": self.max_ncut,
+                "max_ncut": max_ncut,
                 "min_area": self.min_area,
                 "connected": self.connected,
                 "solver": self.solver,
@@ -285,10 +330,10 @@ def _check(o: SegmentOptions) -> None:
 
     if o.n_regions is None:
         need(
-            o.max_ncut is not None or o.mode != "regions",
+            o.method != "kway" or o.mode != "regions",
             "n_regions",
-            "a count ≥ 1 with method kway (the automatic count needs method recursive and its "
-            "max_ncut threshold)",
+            "a count ≥ 1 with method kway (the automatic count needs method recursive, "
+            "boundary or auto)",
             None,
         )
     else:
@@ -303,7 +348,12 @@ def _check(o: SegmentOptions) -> None:
     choice("method", METHODS)
     choice("kway_method", KWAY_METHODS)
     if o.max_ncut is not None and o.mode == "regions":
-        need(o.method == "recursive", "max_ncut", "used with method recursive only", o.method)
+        need(
+            o.method in ("recursive", "auto"),
+            "max_ncut",
+            "used with method recursive only",
+            o.method,
+        )
     need(isinstance(o.connected, (bool, np.bool_)), "connected", "True or False", o.connected)
     need(
         o.radius is None or (number(o.radius) and np.isfinite(o.radius) and o.radius > 0),
@@ -350,6 +400,14 @@ def _check(o: SegmentOptions) -> None:
         o.memory_budget,
     )
     choice("scale", SCALES)
+    if o.method == "boundary" and o.mode == "regions":
+        unused = o.graph_options_set()
+        if unused:
+            raise OptionError(
+                unused[0],
+                "is not used by method boundary (it builds no pixel graph); drop it or choose "
+                "method recursive or kway",
+            )
     if o.scale == "multi" and (o.mode != "regions" or o.method != "kway"):
         what = f"mode {o.mode}" if o.mode != "regions" else f"method {o.method}"
         raise OptionError(
@@ -546,15 +604,112 @@ class RunReport:
 # the steps
 
 
-def _segment(image: np.ndarray, options: SegmentOptions) -> Any:
-    """Call the library function of the mode."""
+def choose_method(options: SegmentOptions, shape: tuple[int, ...]) -> tuple[str, str]:
+    """The region method that runs on an image of ``shape``, and why.
+
+    ``method="auto"`` picks ``"boundary"`` for a 3-channel colour image (a photograph: the
+    boundary hierarchy gives the best segmentations of natural images measured in
+    ``docs/benchmarks.md``) unless an option only the pixel-graph methods use is set (then
+    ``"recursive"``), and ``"recursive"`` for grey and other multichannel images
+    (microscopy), where the normalized cut of the pixel graph is the established method here.
+    Any other method is used as asked.
+
+    Parameters
+    ----------
+    options : SegmentOptions
+    shape : tuple of int
+        Shape of the image to segment, ``(H, W)`` or ``(H, W, C)``.
+
+    Returns
+    -------
+    method : str
+        ``"recursive"``, ``"kway"`` or ``"boundary"`` (``"objects"`` in objects mode).
+    reason : str
+        One sentence for the run record.
+
+    Examples
+    --------
+    >>> choose_method(SegmentOptions(), (40, 60, 3))[0]
+    'boundary'
+    >>> choose_method(SegmentOptions(), (40, 60))[0]
+    'recursive'
+    >>> choose_method(SegmentOptions(radius=3), (40, 60, 3))
+    ('recursive', 'colour image, but radius is set, an option of the pixel-graph methods')
+    """
+    if options.mode == "objects":
+        return "objects", "objects mode: imgcut.objects.segment_objects"
+    if options.method != "auto":
+        return options.method, f"method {options.method} was asked for"
+    if len(shape) != 3 or shape[2] != 3:
+        what = "grey" if len(shape) == 2 else f"{shape[2]}-channel"
+        return "recursive", f"{what} image: recursive normalized cuts, the default off colour"
+    graph = options.graph_options_set()
+    if graph:
+        names = ", ".join(graph)
+        verb = "is" if len(graph) == 1 else "are"
+        return (
+            "recursive",
+            f"colour image, but {names} {verb} set, an option of the pixel-graph methods",
+        )
+    return (
+        "boundary",
+        "3-channel colour image: boundary hierarchy with the photo preset, the best "
+        "setting on natural photographs (docs/benchmarks.md)",
+    )
+
+
+@dataclass
+class _BoundarySegmentation:
+    """Result of the boundary method, shaped like the library's results for :func:`compute`."""
+
+    labels: np.ndarray
+    record: dict[str, Any]
+
+    def to_record(self) -> dict[str, Any]:
+        return self.record
+
+
+def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySegmentation:
+    """Labels from the region hierarchy: ``n_regions`` regions, or the preset's own level."""
+    from imgcut.hierarchy import image_hierarchy
+    from imgcut.presets import get_preset
+
+    start = time.perf_counter()
+    hierarchy = image_hierarchy(image, preset=BOUNDARY_PRESET, seed=options.seed)
+    built = time.perf_counter()
+    if options.n_regions is None:  # the automatic count: the preset's tuned level
+        level = hierarchy.default_level
+        labels = hierarchy.labels_at(level)
+    else:
+        labels = hierarchy.labels_with(options.n_regions)
+        level = None
+    record = {
+        "method": "boundary",
+        "preset": BOUNDARY_PRESET,
+        "preset_params": get_preset(BOUNDARY_PRESET).as_dict(),
+        "level": level,
+        "n_regions_asked": options.n_regions,
+        "n_regions": int(labels.max()) if labels.size else 0,
+        "n_base_regions": hierarchy.n_base,
+        "timings": {
+            "hierarchy": built - start,
+            "labels": time.perf_counter() - built,
+        },
+    }
+    return _BoundarySegmentation(labels=np.asarray(labels, dtype=np.int32), record=record)
+
+
+def _segment(image: np.ndarray, options: SegmentOptions, method: str) -> Any:
+    """Call the library function of the mode and method."""
     if options.mode == "objects":
         from imgcut.objects import segment_objects
 
         return segment_objects(image, **options.segment_kwargs())
+    if method == "boundary":
+        return _boundary_segment(image, options)
     from imgcut.segment import segment
 
-    return segment(image, **options.segment_kwargs())
+    return segment(image, **options.segment_kwargs(method))
 
 
 def _noop(stage: str) -> None:
@@ -617,11 +772,12 @@ def compute(
     t_read = time.perf_counter()
 
     tell("segment")
+    method, reason = choose_method(options, image.shape)
     caught: list[str] = []
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
-            seg = _segment(image, options)
+            seg = _segment(image, options, method)
         except (ValueError, MemoryError) as exc:
             text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise (
@@ -667,6 +823,7 @@ def compute(
         },
         "options": options.to_dict(),
         "options_fingerprint": options_fingerprint(options),
+        "method": _method_record(options, method, reason),
         "result": {
             "regions": regions,
             "objects": objects,
@@ -695,6 +852,14 @@ def compute(
         warnings=caught,
         labels=labels if keep_labels else None,
     )
+
+
+def _method_record(options: SegmentOptions, method: str, reason: str) -> dict[str, Any]:
+    """Which method ran and why (and the Ncut threshold recursive cuts stopped at)."""
+    out: dict[str, Any] = {"asked": options.method, "used": method, "reason": reason}
+    if method in ("recursive", "kway"):
+        out["max_ncut"] = options.segment_kwargs(method)["max_ncut"]
+    return out
 
 
 def _plain_ctor(exc: BaseException) -> bool:

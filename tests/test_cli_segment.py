@@ -75,7 +75,7 @@ def test_default_run_writes_the_four_files_and_a_summary(work):
     assert result.exit_code == 0, result.stderr
     names = sorted(p.name for p in (work / "out").iterdir())
     assert names == ["halves.json", "halves.labels.png", "halves.overlay.png", "halves.regions.csv"]
-    assert "halves.png: 2 regions (10×12 pixels)" in result.stdout
+    assert "halves.png: 2 regions (10×12 pixels, method recursive)" in result.stdout
     assert str(work / "out" / "halves.overlay.png") in result.stdout
     labels = np.asarray(Image.open(work / "out" / "halves.labels.png"))
     # the library called directly on the same pixels with the same options
@@ -304,7 +304,7 @@ def test_existing_outputs_are_refused_without_overwrite(work):
         (["-k", "auto", "--method", "kway"], ["--regions", "needs method recursive"]),
         (["--radius", "0"], ["--radius must be > 0"]),
         (["--radius", "-3"], ["--radius must be > 0"]),
-        (["--method", "spectral"], ["--method must be one of recursive, kway"]),
+        (["--method", "spectral"], ["--method must be one of auto, recursive, kway, boundary"]),
         (["--cue", "texture"], ["--cue must be one of combined, intensity, contour"]),
         (["--solver", "gpu"], ["--solver must be one of auto, lobpcg-amg, arpack, dense"]),
         (["--max-ncut", "5"], ["--max-ncut must be in (0, 2]"]),
@@ -382,14 +382,17 @@ def test_debug_shows_the_traceback(work):
 
 @pytest.mark.slow
 def test_installed_executable_agrees_with_the_library(tmp_path):
-    """The README's run command, through the installed console script, against the library."""
+    """The README's run command, through the installed console script, against the library:
+    on a colour photograph-like image the default method is the boundary hierarchy."""
+    from imgcut.hierarchy import image_hierarchy
+
     exe = shutil.which("imgcut")
     if exe is None:
         pytest.skip("the imgcut console script is not installed (pip install -e .)")
     sample = ROOT / "sample_images" / "scene.png"
-    # the README command plus the optional pictures; defaults otherwise
+    # the README command plus the masks; defaults otherwise
     proc = subprocess.Popen(
-        [exe, "segment", str(sample), "--out", str(tmp_path), "--masks", "--eigenvectors"],
+        [exe, "segment", str(sample), "--out", str(tmp_path), "--masks"],
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
@@ -397,7 +400,7 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     try:
         # meanwhile, the library on the same pixels with the same (default) options
         pixels = read_image(sample).pixels
-        direct = segment(pixels, **SegmentOptions().segment_kwargs())
+        direct = image_hierarchy(pixels, preset="photo", seed=0).labels_with(8)
         stdout, stderr = proc.communicate(timeout=900)
     finally:
         if proc.poll() is None:
@@ -410,31 +413,29 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
             "overlay": "scene.overlay.png",
             "regions": "scene.regions.csv",
             "record": "scene.json",
-            "eigenvectors": "scene.eigenvectors.png",
         }.items()
     }
     for path in out.values():
         assert path.is_file(), path
 
     labels = np.asarray(Image.open(out["labels"]))
-    np.testing.assert_array_equal(labels, direct.labels)  # labels identical
+    np.testing.assert_array_equal(labels, direct)  # labels identical
+    n_regions = int(direct.max())
     overlay = Image.open(out["overlay"])
     assert overlay.size == (pixels.shape[1], pixels.shape[0]) and overlay.mode == "RGB"
     rows = list(csv.DictReader(io.StringIO(out["regions"].read_text())))
     h, w = pixels.shape[:2]
     assert sum(int(r["area"]) for r in rows) == h * w  # regions tile the image
-    assert [int(r["label"]) for r in rows] == list(range(1, direct.n_regions + 1))
+    assert [int(r["label"]) for r in rows] == list(range(1, n_regions + 1))
     record = json.loads(out["record"].read_text())
-    assert record["segmentation"]["eigenvalues"] == pytest.approx(
-        [float(v) for v in direct.eigenvalues], rel=1e-6, abs=1e-12
-    )
+    assert record["method"]["asked"] == "auto" and record["method"]["used"] == "boundary"
+    assert record["segmentation"]["preset"] == "photo"
     assert record["input"]["sha256"] == hashlib.sha256(sample.read_bytes()).hexdigest()
     masks = sorted((tmp_path / "scene.masks").iterdir())
-    assert len(masks) == direct.n_regions
+    assert len(masks) == n_regions
     for k, mask_path in enumerate(masks, start=1):
         np.testing.assert_array_equal(np.asarray(Image.open(mask_path)) > 0, labels == k)
-    Image.open(out["eigenvectors"]).load()  # decodes
-    assert f"scene.png: {direct.n_regions} regions" in stdout
+    assert f"scene.png: {n_regions} regions" in stdout and "method boundary" in stdout
 
 
 # ---------------------------------------------------------------------------------------------
@@ -499,7 +500,9 @@ def test_regions_auto_without_max_ncut_uses_the_documented_threshold(work):
     result = run(work / "bands.png", "-o", work / "o", "-k", "auto", "--radius", "2")
     assert result.exit_code == 0, result.stderr
     rec = json.loads((work / "o" / "bands.json").read_text())
-    assert rec["options"]["n_regions"] is None and rec["options"]["max_ncut"] == AUTO_MAX_NCUT
+    assert rec["options"]["n_regions"] is None and rec["options"]["max_ncut"] is None
+    assert rec["method"]["used"] == "recursive"  # a grey image
+    assert rec["method"]["max_ncut"] == AUTO_MAX_NCUT  # the threshold the cuts stopped at
     # the three bands are found; every cut made is below the threshold and the cheapest cut
     # inside one flat 24 x 10 band is not (its Ncut is far above 0.01)
     assert rec["result"]["regions"] == 3
@@ -508,3 +511,70 @@ def test_regions_auto_without_max_ncut_uses_the_documented_threshold(work):
     assert [len(np.unique(labels[:, 10 * i : 10 * i + 10])) for i in range(3)] == [1, 1, 1]
     help_text = " ".join(CliRunner().invoke(app, ["segment", "--help"]).stdout.split())
     assert f"default threshold {AUTO_MAX_NCUT:g}" in help_text.replace("│ ", "")
+
+
+# ---------------------------------------------------------------------------------------------
+# the default method: boundary hierarchy for colour images, recursive cuts otherwise
+
+
+def _colour_patches() -> np.ndarray:
+    """A 48 x 64 RGB image: red, green and blue thirds, with ±6 noise."""
+    rng = np.random.default_rng(2)
+    img = np.zeros((48, 64, 3))
+    img[:, :21] = (200, 40, 40)
+    img[:, 21:42] = (40, 180, 60)
+    img[:, 42:] = (50, 60, 200)
+    return np.clip(img + rng.uniform(-6, 6, img.shape), 0, 255).astype(np.uint8)
+
+
+def test_colour_image_defaults_to_the_boundary_hierarchy(work):
+    from imgcut.hierarchy import image_hierarchy
+
+    Image.fromarray(_colour_patches()).save(work / "rgb.png")
+    result = run(work / "rgb.png", "-o", work / "o", "-k", "3")
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "o" / "rgb.json").read_text())
+    assert rec["method"]["asked"] == "auto" and rec["method"]["used"] == "boundary"
+    assert "colour" in rec["method"]["reason"]
+    labels = np.asarray(Image.open(work / "o" / "rgb.labels.png"))
+    expected = image_hierarchy(_colour_patches(), preset="photo", seed=0).labels_with(3)
+    np.testing.assert_array_equal(labels, expected)
+    # the three colour thirds come out as the three regions
+    assert labels.max() == 3
+    assert [len(np.unique(labels[:, a:b])) for a, b in ((0, 19), (23, 40), (44, 64))] == [1, 1, 1]
+
+
+def test_boundary_auto_count_uses_the_presets_level(work):
+    from imgcut.hierarchy import image_hierarchy
+    from imgcut.presets import get_preset
+
+    Image.fromarray(_colour_patches()).save(work / "rgb.png")
+    result = run(work / "rgb.png", "-o", work / "o", "-k", "auto", "--method", "boundary")
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "o" / "rgb.json").read_text())
+    assert rec["method"]["used"] == "boundary" and "asked for" in rec["method"]["reason"]
+    assert rec["segmentation"]["level"] == get_preset("photo").default_level
+    labels = np.asarray(Image.open(work / "o" / "rgb.labels.png"))
+    np.testing.assert_array_equal(
+        labels, image_hierarchy(_colour_patches(), preset="photo", seed=0).labels_at()
+    )
+
+
+def test_grey_image_and_graph_options_keep_recursive_cuts(work):
+    result = run(work / "halves.png", "-o", work / "g", *FAST)
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "g" / "halves.json").read_text())
+    assert rec["method"]["used"] == "recursive" and rec["method"]["reason"].startswith("grey")
+
+    Image.fromarray(_colour_patches()).save(work / "rgb.png")
+    result = run(work / "rgb.png", "-o", work / "c", *FAST)  # --radius: a graph option
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "c" / "rgb.json").read_text())
+    assert rec["method"]["used"] == "recursive" and "radius" in rec["method"]["reason"]
+
+
+def test_boundary_refuses_options_it_does_not_use(work):
+    before = snapshot(work)
+    result = run(work / "halves.png", "-o", work / "o", "--method", "boundary", "--radius", "3")
+    assert_one_line_error(result, 2, "--radius is not used by method boundary")
+    assert snapshot(work) == before

@@ -63,7 +63,9 @@ def _listing(folder):
         ({"radius": 0}, "radius", "> 0"),
         ({"radius": -2.0}, "radius", "> 0"),
         ({"radius": float("nan")}, "radius", "> 0"),
-        ({"method": "spectral"}, "method", "one of recursive, kway"),
+        ({"method": "spectral"}, "method", "one of auto, recursive, kway, boundary"),
+        ({"method": "boundary", "radius": 3.0}, "radius", "not used by method boundary"),
+        ({"method": "boundary", "eigenvectors": True}, "eigenvectors", "method boundary"),
         ({"cue": "texture"}, "cue", "one of combined, intensity, contour"),
         ({"solver": "magic"}, "solver", "one of auto, lobpcg-amg, arpack, dense"),
         ({"max_ncut": 3.0}, "max_ncut", "in (0, 2]"),
@@ -169,8 +171,12 @@ def test_fingerprint_is_stable_and_sensitive_to_every_field():
 
 
 def test_automatic_count_gets_the_default_threshold():
-    auto = SegmentOptions(n_regions=None)
+    auto = SegmentOptions(n_regions=None, method="recursive")
     assert auto.max_ncut == runner.AUTO_MAX_NCUT and auto.segment_kwargs()["max_ncut"] == 0.01
+    # method auto keeps the option unset (a set threshold would rule out the boundary method)
+    # and fills it in only when recursive cuts run
+    assert SegmentOptions(n_regions=None).max_ncut is None
+    assert SegmentOptions(n_regions=None).segment_kwargs("recursive")["max_ncut"] == 0.01
     assert SegmentOptions(n_regions=None, max_ncut=0.3).max_ncut == 0.3  # an explicit one wins
     assert SegmentOptions(n_regions=4).max_ncut is None  # a fixed count needs no threshold
 
@@ -302,7 +308,7 @@ def test_one_pixel_image_is_a_data_error(tmp_path):
 
 
 def test_library_errors_are_prefixed_with_the_file(halves, tmp_path, monkeypatch):
-    def refuse(image, options):
+    def refuse(image, options, method):
         raise ValueError("radius too large for this image\nsecond line")
 
     monkeypatch.setattr(runner, "_segment", refuse)
@@ -314,11 +320,11 @@ def test_library_errors_are_prefixed_with_the_file(halves, tmp_path, monkeypatch
 def test_warnings_are_recorded(halves, tmp_path, monkeypatch):
     from imgcut._errors import EigenConvergenceWarning
 
-    def warn_then_segment(image, options):
+    def warn_then_segment(image, options, method):
         warnings.warn(
             "residual 1e-3 above tol 1e-5; raise maxiter", EigenConvergenceWarning, stacklevel=1
         )
-        return segment(image, **options.segment_kwargs())
+        return segment(image, **options.segment_kwargs(method))
 
     monkeypatch.setattr(runner, "_segment", warn_then_segment)
     report = process_image(halves, tmp_path / "out", FAST)
@@ -418,3 +424,36 @@ def test_objects_mode_empty_field_gives_header_only_table(tmp_path):
     assert len(table) == 1 and table[0].startswith("label,area,")
     assert not np.asarray(Image.open(report.outputs["labels"])).any()
     assert up_to_date(tmp_path / "empty.tif", tmp_path / "out", opts) is not None
+
+
+def test_choose_method_boundary_for_colour_recursive_otherwise():
+    choose = runner.choose_method
+    assert choose(SegmentOptions(), (30, 40, 3))[0] == "boundary"
+    assert choose(SegmentOptions(), (30, 40))[0] == "recursive"
+    assert choose(SegmentOptions(), (30, 40, 2))[0] == "recursive"
+    assert choose(SegmentOptions(), (30, 40, 4))[0] == "recursive"
+    for graph_option in ({"radius": 3.0}, {"max_ncut": 0.1}, {"eigenvectors": True}):
+        method, reason = choose(SegmentOptions(**graph_option), (30, 40, 3))
+        assert method == "recursive" and next(iter(graph_option)) in reason
+    assert choose(SegmentOptions(method="kway"), (30, 40, 3))[0] == "kway"
+    assert choose(SegmentOptions(method="boundary"), (30, 40))[0] == "boundary"
+    assert choose(SegmentOptions(mode="objects"), (30, 40))[0] == "objects"
+    with pytest.raises(ValueError, match="boundary"):
+        SegmentOptions(method="boundary").segment_kwargs()
+
+
+def test_boundary_method_on_a_colour_file_records_why(tmp_path):
+    from imgcut.hierarchy import image_hierarchy
+
+    rng = np.random.default_rng(3)
+    img = np.zeros((40, 48, 3))
+    img[:, 24:] = (30, 200, 90)
+    img[:, :24] = (210, 60, 30)
+    img = np.clip(img + rng.uniform(-5, 5, img.shape), 0, 255).astype(np.uint8)
+    Image.fromarray(img).save(tmp_path / "two.png")
+    report = process_image(tmp_path / "two.png", tmp_path / "out", SegmentOptions(n_regions=2))
+    assert report.record["method"]["used"] == "boundary" and report.regions == 2
+    expected = image_hierarchy(img, preset="photo", seed=0).labels_with(2)
+    labels = np.asarray(Image.open(report.outputs["labels"]))
+    np.testing.assert_array_equal(labels, expected)
+    assert report.record["segmentation"]["timings"]["hierarchy"] > 0

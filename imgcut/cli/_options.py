@@ -272,7 +272,8 @@ def _segmentation_options(
             metavar="N|auto",
             help="Number of regions to cut the image into, or 'auto' to keep splitting while "
             "a cut with Ncut below --max-ncut exists (default threshold "
-            f"{AUTO_MAX_NCUT:g}, a rule of thumb: see docs/cli.md).",
+            f"{AUTO_MAX_NCUT:g}, a rule of thumb: see docs/cli.md); with method boundary, the "
+            "hierarchy's tuned level.",
         ),
     ] = "8",
     max_ncut: Annotated[
@@ -289,10 +290,14 @@ def _segmentation_options(
         typer.Option(
             "--method",
             rich_help_panel=PANEL_CUT,
-            help="recursive: repeated two-way cuts, cheapest first; kway: one eigensolve and a "
-            "simultaneous partition.",
+            help="auto: boundary for 3-channel colour images (photographs), recursive for grey "
+            "and microscopy images or when a graph option (--radius, --max-ncut, …) is given; "
+            "recursive: repeated two-way normalized cuts, cheapest first; kway: one eigensolve "
+            "and a simultaneous partition; boundary: region hierarchy from brightness, colour "
+            "and texture boundaries merged greedily (photo preset), N regions or, with "
+            "--regions auto, the preset's tuned level. The run record says which ran and why.",
         ),
-    ] = "recursive",
+    ] = "auto",
     kway_method: Annotated[
         str,
         typer.Option(

@@ -126,8 +126,10 @@ def _summary(report: Any, *, to_stderr: bool) -> None:
     channels = f", {report.shape[2]} channels" if len(report.shape) == 3 else ""
     noun = "object" if report.objects is not None else "region"
     noun += "" if report.regions == 1 else "s"
+    used = report.record.get("method", {}).get("used")
+    by = f", method {used}" if used and used != "objects" else ""
     console.print(
-        f"[bold]{report.source.name}[/]: {report.regions} {noun} ({shape} pixels{channels}) "
+        f"[bold]{report.source.name}[/]: {report.regions} {noun} ({shape} pixels{channels}{by}) "
         f"in {t['total']:.2f} s — read {t['read']:.2f}, segment {t['segment']:.2f}, "
         f"draw {t['render']:.2f}, write {t['write']:.2f}"
     )
