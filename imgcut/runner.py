@@ -44,6 +44,7 @@ __all__ = [
     "SMALL_OBJECTS",
     "FOREGROUNDS",
     "AUTO_REGION_CAP",
+    "DEFAULT_REGIONS",
     "AUTO_MAX_NCUT",
     "BOUNDARY_PRESET",
     "choose_method",
@@ -101,6 +102,9 @@ SMALL_OBJECTS = ("drop", "merge")
 FOREGROUNDS = ("ncut", "otsu")
 #: k-way assignment of eigenvector rows to classes (method="kway").
 KWAY_METHODS = ("discretize", "kmeans")
+#: Region count of the pixel-graph methods when ``n_regions="default"`` (the boundary method
+#: then uses its preset's tuned hierarchy level instead).
+DEFAULT_REGIONS = 8
 #: Region cap of the automatic count (n_regions=None): the max_ncut threshold normally
 #: stops the recursive splitting long before.
 AUTO_REGION_CAP = 64
@@ -160,8 +164,10 @@ class SegmentOptions:
     """Every choice that shapes the outputs of one image (and so its fingerprint).
 
     ``mode="regions"`` (passed to :func:`imgcut.segment.segment`, which documents each):
-    ``n_regions`` (None = automatic: split while a cut below ``max_ncut`` exists, up to
-    `AUTO_REGION_CAP`; ``max_ncut`` then defaults to `AUTO_MAX_NCUT`), ``max_ncut``
+    ``n_regions`` (a count; None = automatic: recursive cuts split while a cut below
+    ``max_ncut`` exists, up to `AUTO_REGION_CAP`, ``max_ncut`` then defaulting to
+    `AUTO_MAX_NCUT`, and the boundary method takes its preset's tuned level; ``"default"``:
+    `DEFAULT_REGIONS` for the pixel-graph methods, the tuned level for boundary), ``max_ncut``
     (recursive method only), ``method``, ``kway_method``,
     ``radius``, ``cue``, ``sigma_feature``, ``sigma_distance``, ``sigma_edge``, ``min_area``,
     ``connected``, ``solver``, ``tol``, ``maxiter``, ``seed``, ``n_eigenvectors``,
@@ -189,7 +195,7 @@ class SegmentOptions:
     imgcut.runner.OptionError: radius must be > 0 (pixels), got 0
     """
 
-    n_regions: int | None = 8
+    n_regions: int | str | None = "default"
     max_ncut: float | None = None
     method: str = "auto"
     kway_method: str = "discretize"
@@ -267,8 +273,11 @@ class SegmentOptions:
             max_ncut = self.max_ncut
             if self.n_regions is None and max_ncut is None and method == "recursive":
                 max_ncut = AUTO_MAX_NCUT
+            n_regions = self.n_regions
+            if n_regions == "default":
+                n_regions = DEFAULT_REGIONS
             kwargs = {
-                "n_regions": AUTO_REGION_CAP if self.n_regions is None else self.n_regions,
+                "n_regions": AUTO_REGION_CAP if n_regions is None else n_regions,
                 "method": method,
                 "kway_method": self.kway_method,
                 "cue": self.cue,
@@ -336,7 +345,7 @@ def _check(o: SegmentOptions) -> None:
             "boundary or auto)",
             None,
         )
-    else:
+    elif o.n_regions != "default":
         need(integer(o.n_regions, 1), "n_regions", "an integer ≥ 1", o.n_regions)
     if o.max_ncut is not None:
         need(
@@ -387,10 +396,11 @@ def _check(o: SegmentOptions) -> None:
         o.n_eigenvectors,
     )
     if o.method == "kway" and o.n_eigenvectors is not None and o.n_regions is not None:
+        count = DEFAULT_REGIONS if o.n_regions == "default" else o.n_regions
         need(
-            o.n_eigenvectors >= o.n_regions,
+            o.n_eigenvectors >= count,
             "n_eigenvectors",
-            f"≥ the number of regions ({o.n_regions}) with method kway",
+            f"≥ the number of regions ({count}) with method kway",
             o.n_eigenvectors,
         )
     need(
@@ -670,14 +680,15 @@ class _BoundarySegmentation:
 
 
 def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySegmentation:
-    """Labels from the region hierarchy: ``n_regions`` regions, or the preset's own level."""
+    """Labels from the region hierarchy: ``n_regions`` regions, or (automatic count or no
+    count given) the preset's tuned level."""
     from imgcut.hierarchy import image_hierarchy
     from imgcut.presets import get_preset
 
     start = time.perf_counter()
     hierarchy = image_hierarchy(image, preset=BOUNDARY_PRESET, seed=options.seed)
     built = time.perf_counter()
-    if options.n_regions is None:  # the automatic count: the preset's tuned level
+    if options.n_regions in (None, "default"):  # the preset's tuned level
         level = hierarchy.default_level
         labels = hierarchy.labels_at(level)
     else:
@@ -858,7 +869,9 @@ def _method_record(options: SegmentOptions, method: str, reason: str) -> dict[st
     """Which method ran and why (and the Ncut threshold recursive cuts stopped at)."""
     out: dict[str, Any] = {"asked": options.method, "used": method, "reason": reason}
     if method in ("recursive", "kway"):
-        out["max_ncut"] = options.segment_kwargs(method)["max_ncut"]
+        kwargs = options.segment_kwargs(method)
+        out["n_regions"] = kwargs["n_regions"]
+        out["max_ncut"] = kwargs["max_ncut"]
     return out
 
 

@@ -400,7 +400,8 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     try:
         # meanwhile, the library on the same pixels with the same (default) options
         pixels = read_image(sample).pixels
-        direct = image_hierarchy(pixels, preset="photo", seed=0).labels_with(8)
+        # no --regions on a photograph: the preset's tuned level of the hierarchy
+        direct = image_hierarchy(pixels, preset="photo", seed=0).labels_at()
         stdout, stderr = proc.communicate(timeout=900)
     finally:
         if proc.poll() is None:
@@ -430,6 +431,7 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     record = json.loads(out["record"].read_text())
     assert record["method"]["asked"] == "auto" and record["method"]["used"] == "boundary"
     assert record["segmentation"]["preset"] == "photo"
+    assert record["options"]["n_regions"] == "default" and record["segmentation"]["level"] == 0.65
     assert record["input"]["sha256"] == hashlib.sha256(sample.read_bytes()).hexdigest()
     masks = sorted((tmp_path / "scene.masks").iterdir())
     assert len(masks) == n_regions

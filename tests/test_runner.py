@@ -59,6 +59,7 @@ def _listing(folder):
     "kwargs, option, text",
     [
         ({"n_regions": 0}, "n_regions", "an integer ≥ 1"),
+        ({"n_regions": "many"}, "n_regions", "an integer ≥ 1"),
         ({"n_regions": None, "method": "kway"}, "n_regions", "needs method recursive"),
         ({"radius": 0}, "radius", "> 0"),
         ({"radius": -2.0}, "radius", "> 0"),
@@ -168,6 +169,15 @@ def test_fingerprint_is_stable_and_sensitive_to_every_field():
         fields["channel"] = None if fields["channel"] is None else tuple(fields["channel"])
         seen.add(options_fingerprint(SegmentOptions(**fields)))
     assert len(seen) == len(changed) + 1
+
+
+def test_default_count_depends_on_the_method():
+    options = SegmentOptions()
+    assert options.n_regions == "default"
+    assert options.segment_kwargs()["n_regions"] == runner.DEFAULT_REGIONS == 8
+    assert options.segment_kwargs("kway")["n_regions"] == 8
+    with pytest.raises(OptionError, match="≥ the number of regions \\(8\\)"):
+        SegmentOptions(method="kway", n_eigenvectors=4)
 
 
 def test_automatic_count_gets_the_default_threshold():

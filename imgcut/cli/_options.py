@@ -17,7 +17,7 @@ from typing import Annotated, Any
 import typer
 from typer.core import TyperCommand
 
-from imgcut.runner import AUTO_MAX_NCUT, DEFAULT_SCALE, SCALES
+from imgcut.runner import AUTO_MAX_NCUT, DEFAULT_REGIONS, DEFAULT_SCALE, SCALES
 
 try:  # typer ≥ 0.20 carries its own copy of click
     from typer._click.exceptions import BadParameter, NoArgsIsHelpError, UsageError
@@ -195,8 +195,10 @@ def _count_or_word(text: str, flag: str, rule: str, low: int, word: str) -> int 
     return value
 
 
-def parse_regions(text: str) -> int | None:
-    """``--regions``: a count ≥ 1, or None for 'auto'."""
+def parse_regions(text: str | None) -> int | str | None:
+    """``--regions``: a count ≥ 1, None for 'auto', ``"default"`` when not given."""
+    if text is None:
+        return "default"
     value = _count_or_word(text, "--regions", "a count ≥ 1", 1, "auto")
     return None if value == "auto" else int(value)
 
@@ -264,18 +266,19 @@ def segment_options(params: dict[str, Any]) -> Any:
 def _segmentation_options(
     *,
     regions: Annotated[
-        str,
+        str | None,
         typer.Option(
             "--regions",
             "-k",
             rich_help_panel=PANEL_CUT,
             metavar="N|auto",
-            help="Number of regions to cut the image into, or 'auto' to keep splitting while "
-            "a cut with Ncut below --max-ncut exists (default threshold "
-            f"{AUTO_MAX_NCUT:g}, a rule of thumb: see docs/cli.md); with method boundary, the "
-            "hierarchy's tuned level.",
+            show_default=f"{DEFAULT_REGIONS}; the tuned level with method boundary",
+            help="Number of regions to cut the image into, or 'auto': recursive cuts keep "
+            "splitting while a cut with Ncut below --max-ncut exists (default threshold "
+            f"{AUTO_MAX_NCUT:g}, a rule of thumb: see docs/cli.md), the boundary method takes "
+            "its preset's tuned hierarchy level.",
         ),
-    ] = "8",
+    ] = None,
     max_ncut: Annotated[
         float | None,
         typer.Option(
