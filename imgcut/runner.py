@@ -652,7 +652,10 @@ def choose_method(options: SegmentOptions, shape: tuple[int, ...]) -> tuple[str,
         return options.method, f"method {options.method} was asked for"
     if len(shape) != 3 or shape[2] != 3:
         what = "grey" if len(shape) == 2 else f"{shape[2]}-channel"
-        return "recursive", f"{what} image: recursive normalized cuts, the default off colour"
+        return (
+            "recursive",
+            f"{what} image: recursive normalized cuts, the default for grey and microscopy images",
+        )
     graph = options.graph_options_set()
     if graph:
         names = ", ".join(graph)

@@ -109,7 +109,8 @@ class UsageProblem(Exception):
 
 
 def fail(command: str, message: object, code: int) -> typer.Exit:
-    """Print ``imgcut COMMAND: error: MESSAGE`` (first line only) on stderr; return the Exit."""
+    """Print ``imgcut COMMAND: error: MESSAGE`` (first line only) on stderr; return the Exit
+    for the caller to raise with ``code``."""
     first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
     typer.echo(f"imgcut {command}: error: {first}", err=True)
     return typer.Exit(code)
@@ -196,7 +197,17 @@ def _count_or_word(text: str, flag: str, rule: str, low: int, word: str) -> int 
 
 
 def parse_regions(text: str | None) -> int | str | None:
-    """``--regions``: a count ≥ 1, None for 'auto', ``"default"`` when not given."""
+    """``--regions``: a count ≥ 1, None for 'auto', ``"default"`` when not given.
+
+    Examples
+    --------
+    >>> parse_regions("12"), parse_regions("AUTO"), parse_regions(None)
+    (12, None, 'default')
+    >>> parse_regions("0")
+    Traceback (most recent call last):
+    ...
+    imgcut.cli._options.UsageProblem: --regions must be a count ≥ 1 or 'auto', got 0
+    """
     if text is None:
         return "default"
     value = _count_or_word(text, "--regions", "a count ≥ 1", 1, "auto")
@@ -204,12 +215,24 @@ def parse_regions(text: str | None) -> int | str | None:
 
 
 def parse_plane(text: str | None) -> int | str | None:
-    """``--plane``: an index ≥ 0 or 'max'."""
+    """``--plane``: an index ≥ 0 or 'max'.
+
+    Examples
+    --------
+    >>> parse_plane("3"), parse_plane("max"), parse_plane(None)
+    (3, 'max', None)
+    """
     return None if text is None else _count_or_word(text, "--plane", "an index ≥ 0", 0, "max")
 
 
 def parse_channel(text: str | None) -> tuple[int, ...] | None:
-    """``--channel``: one index or comma-separated indices ≥ 0."""
+    """``--channel``: one index or comma-separated indices ≥ 0.
+
+    Examples
+    --------
+    >>> parse_channel("0,2"), parse_channel("1"), parse_channel(None)
+    ((0, 2), (1,), None)
+    """
     if text is None:
         return None
     try:
@@ -224,7 +247,13 @@ def parse_channel(text: str | None) -> tuple[int, ...] | None:
 
 
 def gib(value: float | None) -> int | None:
-    """``--memory-budget`` in GiB → bytes (None stays None)."""
+    """``--memory-budget`` in GiB → bytes (None stays None).
+
+    Examples
+    --------
+    >>> gib(0.5), gib(None)
+    (536870912, None)
+    """
     if value is None:
         return None
     if not value > 0:
@@ -246,6 +275,15 @@ def segment_options(params: dict[str, Any]) -> Any:
 
     Parameters that are not segmentation options are ignored. Raises :class:`UsageProblem`
     naming the user's flag for any value out of range.
+
+    Examples
+    --------
+    >>> segment_options({"regions": "auto", "radius": 3.0, "quiet": True}).n_regions is None
+    True
+    >>> segment_options({"radius": 0.0})
+    Traceback (most recent call last):
+    ...
+    imgcut.cli._options.UsageProblem: --radius must be > 0 (pixels), got 0.0
     """
     from imgcut.runner import OptionError, SegmentOptions
 
