@@ -122,3 +122,15 @@ def test_segment_options_name_the_flag():
     assert segment_options({"regions": "3", "radius": 2.0}).n_regions == 3
     with pytest.raises(UsageProblem, match="^--radius must be > 0"):
         segment_options({"radius": -1.0})
+
+
+@pytest.mark.parametrize(
+    "args, fragment",
+    [(["segmnt", "x.png"], "No such command 'segmnt'"), (["--bogus"], "No such option: --bogus")],
+)
+def test_unknown_command_or_root_option_is_one_line(args, fragment):
+    result = CliRunner().invoke(app, args)
+    assert result.exit_code == 2
+    assert result.stderr.strip().splitlines() == [result.stderr.strip()]
+    assert result.stderr.startswith("imgcut: error: ") and fragment in result.stderr
+    assert "Usage:" not in result.output and "╭" not in result.output

@@ -15,7 +15,7 @@ from collections.abc import Callable
 from typing import Annotated, Any
 
 import typer
-from typer.core import TyperCommand
+from typer.core import TyperCommand, TyperGroup
 
 from imgcut.runner import AUTO_MAX_NCUT, DEFAULT_REGIONS, DEFAULT_SCALE, SCALES
 
@@ -30,6 +30,7 @@ __all__ = [
     "EXIT_INTERRUPTED",
     "FLAGS",
     "OneLineErrors",
+    "OneLineGroup",
     "PANEL_CUT",
     "PANEL_GRAPH",
     "PANEL_INPUT",
@@ -112,7 +113,8 @@ def fail(command: str, message: object, code: int) -> typer.Exit:
     """Print ``imgcut COMMAND: error: MESSAGE`` (first line only) on stderr; return the Exit
     for the caller to raise with ``code``."""
     first = " ".join(str(message).split("\n")[0].split()) or "unknown error"
-    typer.echo(f"imgcut {command}: error: {first}", err=True)
+    who = f"imgcut {command}" if command else "imgcut"
+    typer.echo(f"{who}: error: {first}", err=True)
     return typer.Exit(code)
 
 
@@ -132,6 +134,24 @@ class OneLineErrors(TyperCommand):
             raise
         except UsageError as exc:
             raise fail(self.name or "", _usage_message(self, exc, args), EXIT_USAGE) from None
+
+
+class OneLineGroup(TyperGroup):
+    """The ``imgcut`` group: an unknown command or option is one line on stderr, exit 2."""
+
+    def parse_args(self, ctx: Any, args: list[str]) -> list[str]:
+        try:
+            return super().parse_args(ctx, list(args))
+        except NoArgsIsHelpError:
+            raise
+        except UsageError as exc:
+            raise fail("", " ".join(exc.format_message().split()), EXIT_USAGE) from None
+
+    def resolve_command(self, ctx: Any, args: list[str]) -> Any:
+        try:
+            return super().resolve_command(ctx, args)
+        except UsageError as exc:
+            raise fail("", " ".join(exc.format_message().split()), EXIT_USAGE) from None
 
 
 def _value_kind(command: Any, name: str | None) -> type | None:
