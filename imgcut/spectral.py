@@ -237,11 +237,22 @@ def _inv_sqrt(d: np.ndarray) -> np.ndarray:
     return out
 
 
+def _scaled_affinity(W: sp.csr_matrix, s: np.ndarray) -> sp.csr_matrix:
+    """``diag(s) W diag(s)`` by scaling the stored values (no sparse products)."""
+    W = sp.csr_matrix(W)
+    data = W.data * np.repeat(s, np.diff(W.indptr)) * s[W.indices]
+    return sp.csr_matrix((data, W.indices.copy(), W.indptr.copy()), shape=W.shape)
+
+
 def _laplacian_from(W: sp.csr_matrix, d: np.ndarray) -> sp.csr_matrix:
-    s = _inv_sqrt(d)
-    S = sp.diags(s) @ W @ sp.diags(s)  # D^-1/2 W D^-1/2 (Chung 1997, sec. 1.2)
+    S = _scaled_affinity(W, _inv_sqrt(d))  # D^-1/2 W D^-1/2 (Chung 1997, sec. 1.2)
     L = sp.diags((d > 0).astype(np.float64)) - S
     return sp.csr_matrix(L)
+
+
+def _identity_minus(S: sp.csr_matrix) -> sp.csr_matrix:
+    # Every node of a connected component with >= 2 nodes has a positive degree.
+    return sp.csr_matrix(sp.identity(S.shape[0], format="csr") - S)
 
 
 def _fix_signs(Y: np.ndarray) -> np.ndarray:
@@ -293,28 +304,60 @@ def _solve_dense(Lc: sp.csr_matrix, m: int) -> _Solved:
     return _Solved(vals[1 : m + 1], vecs[:, 1 : m + 1], 0, "dense")
 
 
-def _solve_arpack(Lc, u, m, tol, maxiter, rng, x0c) -> _Solved:
+#: Krylov subspace size of the ``"arpack"`` backend for ``m`` wanted eigenpairs: about
+#: ``5 m + 10`` basis vectors, at least 20 and at most 64, and at most ``ARPACK_BASIS_BYTES``
+#: of basis. scipy's default (``2 m + 1``, at least 20) restarts so often on the clustered
+#: spectrum of an image graph that it needs about 4x more products (measured with
+#: ``benchmarks/bench_eigensolver.py``; docs/performance.md).
+ARPACK_BASIS_BYTES = 512 * 1024**2
+
+#: Products with ``D^-1/2 W D^-1/2`` run in float32 when ``tol`` is at least this: they
+#: move half the bytes, and their rounding (about 1e-7 relative) stays far below the
+#: residuals asked for. Residuals are always checked in float64.
+FLOAT32_MIN_TOL = 1e-6
+
+
+#: Extra eigenpairs the ``"arpack"`` backend computes beyond those asked for.
+ARPACK_GUARD = 2
+
+
+def _arpack_ncv(n: int, m: int) -> int:
+    ncv = min(max(5 * m + 10, 20), 64)
+    ncv = min(ncv, max(2 * m + 1, ARPACK_BASIS_BYTES // (8 * max(n, 1))))
+    return int(min(n - 1, max(ncv, m + 2)))
+
+
+def _solve_arpack(Sc, u, m, tol, maxiter, rng, x0c) -> _Solved:
     # Largest eigenvalues mu of S = D^-1/2 W D^-1/2 = I - L with the known top eigenvector
     # u = D^1/2 1 / ||.|| deflated (S u = u, so S - u u^T has u in its null space);
     # lambda = 1 - mu. Shift-invert is not used: a sparse LU of a radius-r image graph
     # fills in badly.
-    n = Lc.shape[0]
-    S = sp.identity(n, format="csr") - Lc
+    n = Sc.shape[0]
+    S = Sc.astype(np.float32) if tol >= FLOAT32_MIN_TOL else Sc
     count = [0]
 
     def matvec(x):
         count[0] += 1
-        x = np.asarray(x).reshape(n, -1)
-        return (S @ x - np.outer(u, u @ x)).reshape(x.shape if x.shape[1] > 1 else (n,))
+        x = np.asarray(x, dtype=np.float64).reshape(n, -1)
+        y = (S @ x.astype(S.dtype)).astype(np.float64)
+        y -= np.outer(u, u @ x)
+        return y.reshape(x.shape if x.shape[1] > 1 else (n,))
 
     op = spla.LinearOperator((n, n), matvec=matvec, dtype=np.float64)
     X = _start_block(n, 1, rng, x0c, u)
-    v0 = X.sum(axis=1) + 1e-3 * np.linalg.norm(X) / np.sqrt(n) * rng.standard_normal(n)
+    # The random part gives the guard eigenvectors a component to grow from.
+    v0 = X.sum(axis=1) + 0.1 * np.linalg.norm(X) / np.sqrt(n) * rng.standard_normal(n)
     v0 -= u * (u @ v0)
-    ncv = min(n - 1, max(2 * m + 1, 20))
+    # Two guard eigenpairs beyond the m wanted: at tol 1e-5 Lanczos may otherwise settle on
+    # the (m+1)-th eigenvalue instead of the m-th when they are close (seen on BSDS graphs).
+    m_req = min(m + ARPACK_GUARD, n - 2)
+    ncv = _arpack_ncv(n, m_req)
+    # ARPACK's own residual estimate does not see the float32 rounding of the products;
+    # asking it for half the tolerance keeps the float64 residuals below tol.
+    inner_tol = tol if S.dtype == np.float64 else 0.5 * tol
     iters = maxiter if maxiter is not None else n * 10
     try:
-        mu, V = spla.eigsh(op, k=m, which="LA", tol=tol, maxiter=iters, v0=v0, ncv=ncv)
+        mu, V = spla.eigsh(op, k=m_req, which="LA", tol=inner_tol, maxiter=iters, v0=v0, ncv=ncv)
     except spla.ArpackNoConvergence as exc:
         # Keep what converged and complete the block by Rayleigh-Ritz on a small
         # Krylov space; the residual check then reports the failure honestly.
@@ -326,13 +369,21 @@ def _solve_arpack(Lc, u, m, tol, maxiter, rng, x0c) -> _Solved:
             q = q / max(np.linalg.norm(q), 1e-300)
             kry.append(q)
         Q, _ = np.linalg.qr(np.hstack(K + [np.array(kry).T]))
-        H = Q.T @ (S @ Q - np.outer(u, u @ Q))
+        H = Q.T @ (Sc @ Q - np.outer(u, u @ Q))
         mu_all, Z = np.linalg.eigh((H + H.T) / 2)
-        order = np.argsort(mu_all)[::-1][:m]
+        order = np.argsort(mu_all)[::-1][:m_req]
         mu, V = mu_all[order], Q @ Z[:, order]
-    order = np.argsort(-mu)
+    if S.dtype != np.float64:
+        # Rayleigh-Ritz in float64 on the converged vectors removes the float32 rounding
+        # from the eigenvalues (the vectors are already accurate to it).
+        V, _ = np.linalg.qr(V)
+        H = V.T @ (Sc @ V - np.outer(u, u @ V))
+        mu, Z = np.linalg.eigh((H + H.T) / 2)
+        V = V @ Z
+    order = np.argsort(-mu)[:m]
     # Iterations reported as operator applications (ARPACK does not expose restarts).
-    return _Solved(1.0 - mu[order], V[:, order], count[0], "arpack")
+    info = {"ncv": ncv, "guard_values": (1.0 - np.sort(mu)[::-1][m:]).tolist()}
+    return _Solved(1.0 - mu[order], V[:, order], count[0], "arpack", info)
 
 
 _AMG_GRAPH_FORM = True
@@ -407,7 +458,7 @@ def _component_solver(solver: str, n_c: int, m: int) -> str:
             )
         return "dense"
     if solver == "auto":
-        return "lobpcg-amg"
+        return "arpack"
     return solver
 
 
@@ -433,13 +484,19 @@ def laplacian_eigenpairs(
         Number of eigenpairs wanted. A graph with fewer than ``k`` nodes gets
         ``min(k, n)`` pairs.
     solver : {"auto", "lobpcg-amg", "arpack", "dense"}, default "auto"
+        ``"arpack"``: implicitly restarted Lanczos (``scipy.sparse.linalg.eigsh``) on
+        the largest eigenvalues of ``D^-1/2 W D^-1/2``, with the null vector deflated, a
+        Krylov basis of about ``5 m + 10`` vectors (scipy's default of ``2 m + 1``
+        restarts too often on the clustered spectra of image graphs), two guard
+        eigenpairs, float32 products when ``tol >= FLOAT32_MIN_TOL`` and a float64
+        Rayleigh-Ritz step at the end; the default for large graphs.
         ``"lobpcg-amg"``: LOBPCG preconditioned by a smoothed-aggregation multigrid
-        V-cycle (pyamg); the default for large graphs. ``"arpack"``: implicitly
-        restarted Lanczos (``scipy.sparse.linalg.eigsh``) on the largest eigenvalues
-        of ``D^-1/2 W D^-1/2``; slow on image graphs, whose small eigenvalues are
-        tightly clustered. ``"dense"``: LAPACK ``eigh`` on an n x n array, for
-        components of at most ``DENSE_MAX_NODES`` nodes. ``"auto"``: dense for
-        components up to 1000 nodes, ``"lobpcg-amg"`` above. Components too small
+        V-cycle (pyamg); on BSDS image graphs at radius 5 it was not faster and at
+        tol 1e-5 it can converge to a set that misses one of the k smallest
+        eigenvalues (docs/performance.md), so it is no longer the default.
+        ``"dense"``: LAPACK ``eigh`` on an n x n array, for components of at most
+        ``DENSE_MAX_NODES`` nodes. ``"auto"``: dense for components up to 1000 nodes,
+        ``"arpack"`` above. Components too small
         for an iterative method (under about ``6 k`` nodes) are always solved densely.
     tol : float, default 1e-5
         Residual tolerance ``||L v - lambda v|| / ||v||`` passed to the iterative
@@ -558,6 +615,9 @@ def laplacian_eigenpairs(
             v[idx] = 1.0
         return v
 
+    def backend_of(n_c: int, m: int) -> str:
+        return _component_solver(solver, n_c, m)
+
     cand_vals: list[float] = []
     cand_vecs: list[np.ndarray] = []
     n_null = min(n_comp, k)
@@ -582,7 +642,8 @@ def laplacian_eigenpairs(
             idx = np.flatnonzero(labels == c)
             Wc = W[idx][:, idx] if n_comp > 1 else W
             dc = d[idx]
-            Lc = _laplacian_from(Wc, dc)
+            Sc = _scaled_affinity(Wc, 1.0 / np.sqrt(dc))
+            Lc = None if backend_of(n_c, m) == "arpack" else _identity_minus(Sc)
             u = sqrt_d[idx] / np.sqrt(dc.sum())
             x0c = None
             if x0 is not None:
@@ -592,7 +653,7 @@ def laplacian_eigenpairs(
             if backend == "dense":
                 res = _solve_dense(Lc, m)
             elif backend == "arpack":
-                res = _solve_arpack(Lc, u, m, tol, maxiter, rng, x0c)
+                res = _solve_arpack(Sc, u, m, tol, maxiter, rng, x0c)
             else:
                 Pc = None
                 if surrogate is not None:
