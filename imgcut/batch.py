@@ -802,16 +802,31 @@ def _run_local(
             while (pending or suspects or in_flight) and not broken:
                 # At most one image per worker in flight (none queued): a dead worker then
                 # takes down only images that were running, and Ctrl-C leaves nothing queued.
+                # The pool may break between a wait and the next submit (a worker died
+                # while another image finished): the item goes back to its queue and the
+                # broken pool is handled below like any other.
                 if suspects:
                     if not in_flight:
                         item = suspects.popleft()
-                        future = executor.submit(_local_task, pipeline, item, options)
+                        try:
+                            future = executor.submit(_local_task, pipeline, item, options)
+                        except cf.process.BrokenProcessPool:
+                            suspects.appendleft(item)
+                            broken = True
+                            break
                         in_flight[future] = (item, True)
                 else:
                     while pending and len(in_flight) < workers:
                         item = pending.popleft()
-                        future = executor.submit(_local_task, pipeline, item, options)
+                        try:
+                            future = executor.submit(_local_task, pipeline, item, options)
+                        except cf.process.BrokenProcessPool:
+                            pending.appendleft(item)
+                            broken = True
+                            break
                         in_flight[future] = (item, False)
+                    if broken:
+                        break
                 done, _ = cf.wait(in_flight, return_when=cf.FIRST_COMPLETED)
                 for future in done:
                     try:
