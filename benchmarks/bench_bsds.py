@@ -108,29 +108,33 @@ def _cached(cache, name, compute):
 
 
 def _score_image(args):
-    split, image_id, preset, cache = args
-    out = _cached(cache, f"score_{split}_{image_id}.pkl", lambda: _score(split, image_id, preset))
+    split, image_id, preset, cache, methods = args
+    tag = "_".join(methods)
+    name = f"score_{split}_{image_id}_{tag}.pkl"
+    out = _cached(cache, name, lambda: _score(split, image_id, preset, methods))
     print(f"scored {image_id}", flush=True)
     return out
 
 
-def _score(split, image_id, preset):
+def _score(split, image_id, preset, methods=METHODS):
     img, gts, human_b = _load(split, image_id)
     tol = 0.0075 * float(np.hypot(*img.shape[:2]))
     near_any = np.zeros(img.shape[:2], bool)
     for g in human_b:
         near_any |= ndimage.distance_transform_edt(~g) <= tol
-    out = {"id": image_id, "time": {}, "region": {}, "fast_boundary": {}}
+    out = {"id": image_id, "time": {}, "cpu_time": {}, "region": {}, "fast_boundary": {}}
     hier = None
-    for method in METHODS:
+    for method in methods:
         params = _params(method, preset)
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         if method == "imgcut":
             hier = image_hierarchy(img, preset=preset, seed=0)
             segs = [hier.labels_at(p) for p in params]
         else:
             segs = [_segment(method, img, p) for p in params]
         elapsed = time.perf_counter() - t0
+        cpu = time.process_time() - c0
+        out["cpu_time"][method] = cpu if method == "imgcut" else cpu / len(params)
         # imgcut: one hierarchy gives the whole sweep; baselines: mean time per segmentation
         out["time"][method] = elapsed if method == "imgcut" else elapsed / len(params)
         reg, fb = [], []
@@ -203,6 +207,7 @@ def _aggregate(results, method, params):
             "voi": float(reg[..., 3].min(1).mean()),
         },
         "time_per_image_s": float(np.median([res["time"][method] for res in results])),
+        "cpu_time_per_image_s": float(np.median([res["cpu_time"][method] for res in results])),
     }
 
 
@@ -280,7 +285,22 @@ def main(argv=None):
     ap.add_argument("--cache", default=None, help="folder for per-image results (resumable)")
     ap.add_argument("--gallery", type=int, default=0, help="number of gallery images")
     ap.add_argument("--out", default="docs")
+    ap.add_argument(
+        "--methods",
+        default=",".join(METHODS),
+        help="comma-separated subset of " + ", ".join(METHODS),
+    )
+    ap.add_argument(
+        "--baselines-from",
+        default=None,
+        help="earlier bsds_<split>.json whose entries are copied for methods not run now "
+        "(marked as from an earlier run)",
+    )
     args = ap.parse_args(argv)
+    methods = tuple(m.strip() for m in args.methods.split(",") if m.strip())
+    bad = sorted(set(methods) - set(METHODS))
+    if bad or not methods:
+        raise SystemExit(f"--methods must be a subset of {METHODS}; got {args.methods!r}")
     if not DATA.is_dir():
         raise SystemExit(f"BSDS500 not found at {DATA}")
     preset = get_preset(args.preset)
@@ -293,8 +313,9 @@ def main(argv=None):
     (out_dir / "images").mkdir(parents=True, exist_ok=True)
     t_start = time.perf_counter()
     with ProcessPoolExecutor(max_workers=args.jobs) as pool:
-        results = list(pool.map(_score_image, [(args.split, i, preset, cache) for i in ids]))
-        summary = {m: _aggregate(results, m, _params(m, preset)) for m in METHODS}
+        jobs = [(args.split, i, preset, cache, methods) for i in ids]
+        results = list(pool.map(_score_image, jobs))
+        summary = {m: _aggregate(results, m, _params(m, preset)) for m in methods}
         # exact boundary F at the best values of the fast sweep
         todo = []
         for m, s in summary.items():
@@ -315,6 +336,14 @@ def main(argv=None):
         s["ods"]["boundary_f"] = best["f"]
         s["ods"]["boundary_f_param"] = best["param"]
         s["ods"]["fast_boundary_f"] = float(max(s["fast_f"]))
+    if args.baselines_from:
+        with open(args.baselines_from) as fh:
+            earlier = json.load(fh)
+        if earlier.get("n_images") != len(ids) or earlier.get("split") != args.split:
+            raise SystemExit("--baselines-from must hold the same split and image count")
+        for m in METHODS:
+            if m not in summary and m in earlier["methods"]:
+                summary[m] = dict(earlier["methods"][m], from_earlier_run=True)
     report = {
         "split": args.split,
         "n_images": len(ids),
@@ -331,13 +360,15 @@ def main(argv=None):
         pick = ids[:: max(1, len(ids) // args.gallery)][: args.gallery]
         # the preset's default level (chosen on train), not a level picked on this split
         _gallery(args.split, pick, preset, preset.default_level, out_dir / "images")
-    base = summary["felzenszwalb"]["time_per_image_s"]
+    base = summary.get("felzenszwalb", summary[methods[0]])["time_per_image_s"]
     print(f"BSDS500 {args.split}: {len(ids)} images, ODS (one parameter for the whole split)")
     head = ("method", "cover", "PRI", "VoI", "F", "s/img", "x felz")
     print(f"{head[0]:14s} " + " ".join(f"{h:>7s}" for h in head[1:]))
     for m, s in summary.items():
         o = s["ods"]
         t = s["time_per_image_s"]
+        if s.get("from_earlier_run"):
+            m = m + "*"
         print(
             f"{m:14s} {o['covering']:7.3f} {o['pri']:7.3f} {o['voi']:7.3f} "
             f"{o['boundary_f']:7.3f} {t:7.2f} {t / base:7.1f}"

@@ -50,7 +50,8 @@ class RegionHierarchy:
         Level at which the two sides of each border end up in one region (an ultrametric:
         the merge level of their lowest common ancestor).
     edge_strength : ndarray, shape (m,), float64
-        Mean boundary strength along each border of the over-segmentation.
+        Mean boundary strength along each border of the over-segmentation (the power mean
+        of :func:`merge_regions` when ``strength_power`` is not 1).
     merge_levels : ndarray, shape (n_merges,), float64
         Non-decreasing level of each successive merge.
     boundary : ndarray, shape (H, W), optional

@@ -62,3 +62,36 @@ def test_scale_weights_reach_every_entry():
     assert w["brightness@2"] == pytest.approx(
         p.scale_weights[0] * dict(p.cue_weights)["brightness"]
     )
+
+
+def test_merge_fields_reach_the_hierarchy():
+    # image_hierarchy must hand the preset's merge-score fields to merge_regions: the levels
+    # equal those of a direct call with the same fields on the same boundary.
+    from imgcut import hierarchy
+    from imgcut.spectral_boundary import global_boundary
+
+    rng = np.random.default_rng(3)
+    img = rng.random((32, 40, 3))
+    img[:, 20:] += 0.5
+    p = presets.get_preset("photo")
+    assert p.size_scale > 0 and p.strength_power != 1.0  # the fitted merge score is on
+    h = hierarchy.image_hierarchy(np.clip(img / 1.5, 0, 1), preset=p, seed=0)
+    gb = global_boundary(np.clip(img / 1.5, 0, 1), preset=p, seed=0)
+    base = hierarchy.oversegment(gb.strength, smooth=p.watershed_smooth)
+    direct = hierarchy.merge_regions(
+        base,
+        gb.strength,
+        tensor=gb.tensor,
+        min_area=p.min_area,
+        size_scale=p.size_scale,
+        size_power=p.size_power,
+        strength_power=p.strength_power,
+    )
+    np.testing.assert_array_equal(h.edge_levels, direct.edge_levels)
+    plain = hierarchy.merge_regions(base, gb.strength, tensor=gb.tensor)
+    assert not np.array_equal(plain.edge_levels, direct.edge_levels)
+
+
+def test_fluorescence_keeps_the_plain_mean_merge():
+    p = presets.PRESETS["fluorescence"]
+    assert (p.size_scale, p.strength_power, p.min_area) == (0.0, 1.0, 0)
