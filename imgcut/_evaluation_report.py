@@ -37,14 +37,32 @@ def _write(path: Path, data: bytes) -> None:
     atomic_write(path, data)
 
 
+def _is_level(res: Any) -> bool:
+    return getattr(res, "sweep", "regions") == "level"
+
+
+def _sweep_label(res: Any, value: Any) -> str:
+    """One sweep entry as text: ``"0.625"`` (level) or ``"8"`` (region count)."""
+    return f"{float(value):g}" if _is_level(res) else str(value)
+
+
+def _ods_regions(res: Any, index: int) -> float:
+    """Mean number of regions over the images at sweep entry ``index``."""
+    return float(np.mean([im.n_regions[index] for im in res.images]))
+
+
 def _per_image_rows(res: Any) -> tuple[list[str], list[list[Any]]]:
     if res.mode == "regions":
         keys = list(res.images[0].scores[0].as_dict())
-        header = ["image", "sweep_index", "requested_regions", "regions", *keys, "seconds"]
+        what = "level" if _is_level(res) else "requested_regions"
+        header = ["image", "method", "sweep_index", what, "regions", *keys, "seconds"]
+        method = getattr(res, "method", "")
         rows = []
         for im in res.images:
             for i, (c, n, sc) in enumerate(zip(im.counts, im.n_regions, im.scores, strict=True)):
-                rows.append([im.name, i, c, n, *sc.as_dict().values(), round(im.seconds, 3)])
+                rows.append(
+                    [im.name, method, i, c, n, *sc.as_dict().values(), round(im.seconds, 3)]
+                )
         return header, rows
     header = [
         "image", "iou_threshold", "true_objects", "found_objects", "true_positives",
@@ -66,15 +84,17 @@ def _per_image_rows(res: Any) -> tuple[list[str], list[list[Any]]]:
 def _summary_rows(res: Any) -> tuple[list[str], list[list[Any]]]:
     if res.mode == "regions":
         r, b, c = res.regions, res.boundaries, res.counts
-        header = ["measure", "ODS", "ODS_regions", "OIS", "Best"]
+        at = "ODS_level" if _is_level(res) else "ODS_regions"
+        header = ["measure", "ODS", at, "ODS_mean_regions", "OIS", "Best"]
         rows = [
-            ["covering", r.covering_ods, c[r.covering_ods_index], r.covering_ois, r.covering_best],
-            ["PRI", r.pri_ods, c[r.pri_ods_index], r.pri_ois, ""],
-            ["VoI (bits)", r.voi_ods, c[r.voi_ods_index], r.voi_ois, ""],
-            ["boundary F", b.ods_f, c[b.ods_index], b.ois_f, ""],
-            ["boundary precision", b.ods_precision, c[b.ods_index], b.ois_precision, ""],
-            ["boundary recall", b.ods_recall, c[b.ods_index], b.ois_recall, ""],
+            ["covering", r.covering_ods, r.covering_ods_index, r.covering_ois, r.covering_best],
+            ["PRI", r.pri_ods, r.pri_ods_index, r.pri_ois, ""],
+            ["VoI (bits)", r.voi_ods, r.voi_ods_index, r.voi_ois, ""],
+            ["boundary F", b.ods_f, b.ods_index, b.ois_f, ""],
+            ["boundary precision", b.ods_precision, b.ods_index, b.ois_precision, ""],
+            ["boundary recall", b.ods_recall, b.ods_index, b.ois_recall, ""],
         ]
+        rows = [[m, v, c[i], _ods_regions(res, i), *rest] for m, v, i, *rest in rows]
         return header, rows
     s = res.instances
     header = ["iou_threshold", "precision", "recall", "f1", "mean_iou", "tp", "fp", "fn"]
@@ -94,12 +114,25 @@ def _markdown(res: Any, header: list[str], rows: list[list[Any]], plots: list[st
         f"- dataset: `{ds.root}` (layout `{ds.layout}`), mode `{res.mode}`",
         f"- images scored: {len(res.images)}; failed and skipped: {len(res.failures)}",
     ]
+    m = res.options.get("method")
+    if m:
+        asked = f" (asked `{m['asked']}`)" if m.get("asked") != m.get("used") else ""
+        lines.append(f"- method: `{m['used']}`{asked}: {m['reason']}")
     if res.mode == "regions":
-        lines.append(f"- region counts swept: {', '.join(map(str, res.counts))}")
+        if _is_level(res):
+            lines.append(
+                "- hierarchy levels swept (one hierarchy per image, so every image's "
+                f"segmentations are nested): {', '.join(_sweep_label(res, t) for t in res.counts)}"
+            )
+            entry = "level"
+        else:
+            lines.append(f"- region counts swept: {', '.join(map(str, res.counts))}")
+            entry = "region count"
         lines.append(
             f"- boundary tolerance: {res.options.get('max_dist')} x image diagonal; "
-            "VoI in bits (lower is better); ODS = one region count for the dataset, "
-            "OIS = best count per image, Best = best level per human region"
+            f"VoI in bits (lower is better); ODS = one {entry} for the dataset, "
+            f"OIS = best {entry} per image, Best = best {entry} per human region; "
+            f"ODS_mean_regions = mean regions per image at the ODS {entry}"
         )
     else:
         s = res.instances
@@ -150,14 +183,15 @@ def _pr_curve(res: Any, path: Path) -> None:
     order = np.argsort(b.recall)
     ax.plot(b.recall[order], b.precision[order], "o-", color="tab:red", label="imgcut sweep")
     for k, n in enumerate(res.counts):
-        ax.annotate(str(n), (b.recall[k], b.precision[k]), fontsize=7, xytext=(3, 3),
-                    textcoords="offset points")  # fmt: skip
+        ax.annotate(_sweep_label(res, n), (b.recall[k], b.precision[k]), fontsize=7,
+                    xytext=(3, 3), textcoords="offset points")  # fmt: skip
     ax.plot([b.ods_recall], [b.ods_precision], "*", ms=12, color="tab:red",
             label=f"ODS F={b.ods_f:.3f}")  # fmt: skip
     ax.plot([b.ois_recall], [b.ois_precision], "s", color="tab:blue",
             label=f"OIS F={b.ois_f:.3f}")  # fmt: skip
     ax.set(xlim=(0, 1), ylim=(0, 1), xlabel="recall", ylabel="precision",
-           title="Boundary precision-recall (labels: region count)")  # fmt: skip
+           title="Boundary precision-recall (labels: "
+           f"{'hierarchy level' if _is_level(res) else 'region count'})")  # fmt: skip
     ax.legend(loc="lower left", fontsize=8)
     _save(fig, path)
 
@@ -218,7 +252,9 @@ def write_report_files(res: Any, out_dir: Path, *, n_examples: int = 3) -> list[
         plots.append("boundary_pr.png")
         level = res.regions.covering_ods_index
         cov = np.array([im.scores[level].region.covering for im in res.images])
-        _histogram(cov, "covering", f"Per-image covering at {res.counts[level]} regions (ODS)",
+        at = (f"level {_sweep_label(res, res.counts[level])}" if _is_level(res)
+              else f"{res.counts[level]} regions")  # fmt: skip
+        _histogram(cov, "covering", f"Per-image covering at {at} (ODS)",
                    out_dir / "covering_hist.png")  # fmt: skip
         plots.append("covering_hist.png")
         per_image = cov

@@ -38,6 +38,7 @@ from imgcut.metrics import (
 
 __all__ = [
     "DEFAULT_SWEEP",
+    "EVALUATION_METHODS",
     "DEFAULT_IOU_THRESHOLDS",
     "MODES",
     "EvaluationResult",
@@ -47,7 +48,9 @@ __all__ = [
     "InstanceSummary",
     "evaluate_dataset",
     "human_agreement",
+    "boundary_sweep",
     "human_boundaries",
+    "resolve_method",
     "score_image",
     "segment_objects_labels",
     "segment_sweep",
@@ -61,6 +64,13 @@ DEFAULT_SWEEP = (2, 3, 4, 6, 8, 12, 16, 24, 32)
 DEFAULT_IOU_THRESHOLDS = (0.5, 0.6, 0.7, 0.8, 0.9)
 #: Evaluation modes: region/boundary measures over a sweep, or instance measures.
 MODES = ("auto", "regions", "objects")
+#: Region methods of a regions-mode evaluation, as for ``imgcut segment --method``: ``auto``
+#: (``boundary`` for 3-channel colour images, else ``recursive``; resolved by
+#: :func:`imgcut.runner.choose_method`), recursive or k-way normalized cuts, or the region
+#: hierarchy of :func:`imgcut.hierarchy.image_hierarchy`.
+EVALUATION_METHODS = ("auto", "recursive", "kway", "boundary")
+#: Segmentation options the boundary method uses (it builds no pixel graph).
+BOUNDARY_OPTIONS = ("seed", "preset")
 
 #: A region segmenter: (image, region counts) -> one label image per count.
 SweepSegmenter = Callable[[np.ndarray, Sequence[int]], Sequence[np.ndarray]]
@@ -288,6 +298,119 @@ def segment_sweep(image: np.ndarray, counts: Sequence[int], **options: Any) -> l
     return [seg.labels_at(min(int(k), top)) for k in counts]
 
 
+def boundary_sweep(
+    image: np.ndarray,
+    sweep: Sequence[float],
+    *,
+    by: str = "level",
+    preset: str = "photo",
+    seed: int | None = 0,
+) -> list[np.ndarray]:
+    """Build one region hierarchy and read a label image at every entry of a sweep.
+
+    Parameters
+    ----------
+    image : ndarray, shape (H, W) or (H, W, C)
+        Image as read.
+    sweep : sequence of float
+        Hierarchy levels (``by="level"``) or region counts (``by="regions"``).
+    by : {"level", "regions"}, default "level"
+        ``"level"``: ``RegionHierarchy.labels_at(t)`` for each level ``t``; ``"regions"``:
+        ``RegionHierarchy.labels_with(n)`` for each count ``n`` (the nearest level the
+        hierarchy has).
+    preset : str, default "photo"
+        Preset of :func:`imgcut.hierarchy.image_hierarchy` (:mod:`imgcut.presets`).
+    seed : int or None, default 0
+        Seed of the hierarchy (textons, eigensolver).
+
+    Returns
+    -------
+    list of ndarray of int32
+        One label image per sweep entry.
+
+    Raises
+    ------
+    ValueError
+        For an unknown ``by`` or preset, or an invalid image.
+
+    Notes
+    -----
+    The hierarchy is computed once, so every label image of the sweep is a thresholding of
+    the same ultrametric: the segmentations are nested (each region at a higher level is a
+    union of regions at a lower one), and ODS / OIS are chosen within one nested family, as
+    in the benchmark protocol of Arbelaez et al. (2011), Sec. 3 (from memory) and
+    ``benchmarks/bench_bsds.py``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> img = np.zeros((30, 40, 3)); img[:, 20:] = (0.9, 0.2, 0.1)
+    >>> [int(lab.max()) for lab in boundary_sweep(img, (0.1, 1.0))]
+    [2, 1]
+    """
+    from imgcut.hierarchy import image_hierarchy
+
+    if by not in ("level", "regions"):
+        raise ValueError(f"by must be 'level' or 'regions'; got {by!r}")
+    hierarchy = image_hierarchy(image, preset=preset, seed=seed)
+    if by == "level":
+        return [hierarchy.labels_at(float(t)) for t in sweep]
+    return [hierarchy.labels_with(int(n)) for n in sweep]
+
+
+def resolve_method(
+    method: str, shape: tuple[int, ...], segment_options: dict[str, Any] | None = None
+) -> tuple[str, str]:
+    """The region method an evaluation runs on images of ``shape``, and why.
+
+    The same rule as ``imgcut segment`` (:func:`imgcut.runner.choose_method`): ``"auto"``
+    picks ``"boundary"`` for a 3-channel colour image unless an option only the pixel-graph
+    methods use is set, and ``"recursive"`` otherwise.
+
+    Parameters
+    ----------
+    method : {"auto", "recursive", "kway", "boundary"}
+    shape : tuple of int
+        Image shape ``(H, W)`` or ``(H, W, C)``.
+    segment_options : dict, optional
+        Options of :func:`imgcut.segment` (graph options keep ``auto`` on ``recursive``).
+
+    Returns
+    -------
+    method : str
+        ``"recursive"``, ``"kway"`` or ``"boundary"``.
+    reason : str
+        One sentence for the report.
+
+    Raises
+    ------
+    ValueError
+        For an unknown method.
+
+    Examples
+    --------
+    >>> resolve_method("auto", (321, 481, 3))[0]
+    'boundary'
+    >>> resolve_method("auto", (64, 64))[0]
+    'recursive'
+    >>> resolve_method("auto", (64, 64, 3), {"radius": 3})[0]
+    'recursive'
+    """
+    import dataclasses
+
+    from imgcut.runner import SegmentOptions, choose_method
+
+    if method not in EVALUATION_METHODS:
+        raise ValueError(f"method must be one of {', '.join(EVALUATION_METHODS)}; got {method!r}")
+    names = {f.name for f in dataclasses.fields(SegmentOptions)}
+    known = {k: v for k, v in (segment_options or {}).items() if k in names and k != "method"}
+    try:
+        opts = SegmentOptions(method=method, **known)
+    except (TypeError, ValueError):  # options the library call will judge; rule without them
+        opts = SegmentOptions(method=method)
+    return choose_method(opts, tuple(shape))
+
+
 def segment_objects_labels(image: np.ndarray, **options: Any) -> np.ndarray:
     """Object labels from :func:`imgcut.objects.segment_objects` (the objects-mode hook).
 
@@ -308,8 +431,9 @@ class ImageResult:
     Attributes
     ----------
     name : str
-    counts : tuple of int
-        Requested region counts of the sweep (regions mode; empty in objects mode).
+    counts : tuple of int or float
+        The sweep entries (regions mode; empty in objects mode): requested region counts,
+        or hierarchy levels when the evaluation's ``sweep`` is ``"level"``.
     n_regions : tuple of int
         Regions actually present at each sweep entry (objects found, in objects mode).
     scores : list of ImageScore
@@ -328,7 +452,7 @@ class ImageResult:
     """
 
     name: str
-    counts: tuple[int, ...]
+    counts: tuple[float, ...]
     n_regions: tuple[int, ...]
     scores: list[ImageScore] = field(default_factory=list)
     instance: InstanceScores | None = None
@@ -362,6 +486,16 @@ def _read_pixels(path: Path) -> np.ndarray:
     return read_image(path).pixels
 
 
+def _first_shape(items: Sequence[DatasetItem]) -> tuple[str, tuple[int, ...]] | None:
+    """Name and shape of the first readable image (None when none reads)."""
+    for item in items:
+        try:
+            return item.name, tuple(_read_pixels(item.image).shape)
+        except Exception:  # noqa: BLE001 - an unreadable image fails later, on its own
+            continue
+    return None
+
+
 def _evaluate_item(*args: Any) -> ImageResult:
     """Score one item, recording the warnings it raises on the result."""
     with warnings.catch_warnings(record=True) as caught:
@@ -377,12 +511,14 @@ def _evaluate_item(*args: Any) -> ImageResult:
 def _evaluate_item_inner(
     item: DatasetItem,
     mode: str,
-    counts: tuple[int, ...],
+    counts: tuple[float, ...],
     segment_options: dict[str, Any],
     max_dist: float,
     iou_thresholds: tuple[float, ...],
     sweep_segmenter: SweepSegmenter | None,
     object_segmenter: ObjectSegmenter | None,
+    method: tuple[str, str, str] = ("recursive", "recursive", ""),
+    sweep: str = "regions",
 ) -> ImageResult:
     t0 = time.perf_counter()
     image = _read_pixels(item.image)
@@ -400,7 +536,24 @@ def _evaluate_item_inner(
         res.store_labels([labels])
         res.seconds = time.perf_counter() - t0
         return res
-    fn_sweep = sweep_segmenter or (lambda im, c: segment_sweep(im, c, **segment_options))
+    asked, used, _ = method
+    if sweep_segmenter is not None:
+        fn_sweep = sweep_segmenter
+    elif used == "boundary":
+        opts = {k: v for k, v in segment_options.items() if k in BOUNDARY_OPTIONS}
+        fn_sweep = lambda im, c: boundary_sweep(im, c, by=sweep, **opts)  # noqa: E731
+    else:
+        opts = {**segment_options, "method": used} if used == "kway" else segment_options
+        fn_sweep = lambda im, c: segment_sweep(im, c, **opts)  # noqa: E731
+    if asked == "auto" and sweep_segmenter is None:
+        own, why = resolve_method("auto", image.shape, segment_options)
+        if own != used:  # one method for the dataset, so that ODS/OIS compare like with like
+            warnings.warn(
+                f"method auto would pick {own} for this image ({why}); the dataset is "
+                f"evaluated with {used}, chosen from its first image",
+                RuntimeWarning,
+                stacklevel=2,
+            )
     levels = [np.asarray(lab) for lab in fn_sweep(image, counts)]
     if len(levels) != len(counts):
         raise ValueError(f"segmenter returned {len(levels)} label images for {len(counts)} counts")
@@ -477,8 +630,9 @@ class EvaluationResult:
     ----------
     dataset : Dataset
     mode : {"regions", "objects"}
-    counts : tuple of int
-        The sweep (regions mode).
+    counts : tuple of int or float
+        The sweep (regions mode): region counts, or hierarchy levels when ``sweep`` is
+        ``"level"``.
     images : list of ImageResult
         Scored images, in dataset order.
     failures : list of (str, str)
@@ -487,18 +641,29 @@ class EvaluationResult:
     boundaries : BoundarySummary or None
     instances : InstanceSummary or None
     options : dict
-        Options of the run (for the report).
+        Options of the run (for the report); ``options["method"]`` holds
+        ``{"asked", "used", "reason"}``.
+    sweep : {"regions", "level"}
+        What the sweep entries are: region counts or hierarchy levels.
+    method : str
+        Region method used (``"recursive"``, ``"kway"``, ``"boundary"``; ``"custom"`` for a
+        ``sweep_segmenter``; ``"objects"`` in objects mode).
+    method_reason : str
+        Why that method ran (one sentence).
     """
 
     dataset: Dataset
     mode: str
-    counts: tuple[int, ...]
+    counts: tuple[float, ...]
     images: list[ImageResult]
     failures: list[tuple[str, str]]
     regions: RegionSummary | None = None
     boundaries: BoundarySummary | None = None
     instances: InstanceSummary | None = None
     options: dict[str, Any] = field(default_factory=dict)
+    sweep: str = "regions"
+    method: str = "recursive"
+    method_reason: str = ""
 
 
 def _one_line(exc: BaseException) -> str:
@@ -509,8 +674,10 @@ def _one_line(exc: BaseException) -> str:
 def evaluate_dataset(
     root: str | os.PathLike[str],
     *,
-    counts: Sequence[int] = DEFAULT_SWEEP,
+    counts: Sequence[int] | None = None,
+    levels: Sequence[float] | None = None,
     mode: str = "auto",
+    method: str = "auto",
     limit: int | None = None,
     jobs: int = 1,
     max_dist: float = DEFAULT_MAX_DIST,
@@ -527,12 +694,24 @@ def evaluate_dataset(
     root : str or path-like
         Dataset folder (layout ``"bsds"`` or ``"masks"``, see
         :func:`imgcut.groundtruth.find_dataset`).
-    counts : sequence of int, default DEFAULT_SWEEP
+    counts : sequence of int, optional
         Region counts swept per image (regions mode); ODS picks one for the dataset,
-        OIS one per image.
+        OIS one per image. Default: `DEFAULT_SWEEP` for the pixel-graph methods; for
+        ``boundary`` the sweep is over ``levels`` unless counts are given (then each count is
+        read with ``RegionHierarchy.labels_with``).
+    levels : sequence of float, optional
+        Hierarchy levels swept per image (method ``boundary`` only; exclusive with
+        ``counts``). Default for ``boundary``: the preset's ``level_sweep``.
     mode : {"auto", "regions", "objects"}, default "auto"
         ``"auto"``: regions for ``"bsds"``, objects for ``"masks"``. Objects mode scores
         instance labels (0 = background) with :func:`imgcut.metrics.instance_scores`.
+    method : {"auto", "recursive", "kway", "boundary"}, default "auto"
+        Region method (regions mode), as for ``imgcut segment``: ``"auto"`` is resolved
+        once, from the first image, by :func:`resolve_method` (``boundary`` for 3-channel
+        colour images, ``recursive`` otherwise); every image then uses that method so that
+        ODS / OIS compare one kind of segmentation. With ``"boundary"`` each image's sweep
+        comes from one hierarchy (:func:`boundary_sweep`). A ``"method"`` entry of
+        ``segment_options`` is honoured when ``method`` is ``"auto"`` (older callers).
     limit : int, optional
         Score only the first ``limit`` images (sorted by name).
     jobs : int, default 1
@@ -543,10 +722,13 @@ def evaluate_dataset(
         Objects mode thresholds.
     segment_options : dict, optional
         Keyword options of :func:`imgcut.segment` (regions mode) or
-        :func:`imgcut.objects.segment_objects` (objects mode).
+        :func:`imgcut.objects.segment_objects` (objects mode); the boundary method takes
+        only ``seed`` and ``preset`` (default ``"photo"``).
     sweep_segmenter, object_segmenter : callable, optional
-        Replace the default segmenters (:func:`segment_sweep`,
-        :func:`segment_objects_labels`); the hook for other methods or modes.
+        Replace the default segmenters (:func:`segment_sweep`, :func:`boundary_sweep`,
+        :func:`segment_objects_labels`); the hook for other methods or modes. A
+        ``sweep_segmenter`` receives the sweep (``counts``, default `DEFAULT_SWEEP`, or
+        ``levels``) and the method is reported as ``"custom"``.
     progress : callable, optional
         Called as ``progress(name, error)`` after each image (``error`` None on success).
 
@@ -560,12 +742,34 @@ def evaluate_dataset(
     ValueError
         Bad options or dataset folder (one line; a :class:`GroundTruthError` names the
         folder); also when every image failed.
+
+    Notes
+    -----
+    With ``boundary`` one hierarchy per image gives the whole sweep, so the label images
+    of an image are nested and ODS / OIS select within one family of segmentations
+    (``docs/benchmarks.md``); with ``recursive`` one run to ``max(counts)`` regions does
+    the same; ``kway`` segments once per count.
     """
     if mode not in MODES:
         raise ValueError(f"mode must be one of {', '.join(MODES)}; got {mode!r}")
-    cts = tuple(int(c) for c in counts)
-    if not cts or min(cts) < 1:
-        raise ValueError(f"counts must be region counts >= 1, got {list(counts)}")
+    opts = dict(segment_options or {})
+    if method == "auto" and "method" in opts:
+        method = str(opts["method"])
+    opts.pop("method", None)
+    if method not in EVALUATION_METHODS:
+        raise ValueError(f"method must be one of {', '.join(EVALUATION_METHODS)}; got {method!r}")
+    if counts is not None and levels is not None:
+        raise ValueError("give counts (region counts) or levels (hierarchy levels), not both")
+    cts: tuple[int, ...] | None = None
+    if counts is not None:
+        cts = tuple(int(c) for c in counts)
+        if not cts or min(cts) < 1:
+            raise ValueError(f"counts must be region counts >= 1, got {list(counts)}")
+    lvls: tuple[float, ...] | None = None
+    if levels is not None:
+        lvls = tuple(float(t) for t in levels)
+        if not lvls or not all(np.isfinite(lvls)):
+            raise ValueError(f"levels must be finite hierarchy levels, got {list(levels)}")
     if limit is not None and limit < 1:
         raise ValueError(f"limit must be >= 1, got {limit}")
     if jobs < 1:
@@ -574,8 +778,49 @@ def evaluate_dataset(
     dataset = find_dataset(root)
     run_mode = mode if mode != "auto" else ("regions" if dataset.layout == "bsds" else "objects")
     items = list(dataset.items[:limit] if limit else dataset.items)
-    opts = dict(segment_options or {})
-    args = (run_mode, cts, opts, max_dist, ths, sweep_segmenter, object_segmenter)
+    if run_mode == "objects":
+        if method not in ("auto", "recursive"):
+            raise ValueError(
+                f"method {method} applies to regions mode; objects mode segments with "
+                "imgcut.objects.segment_objects"
+            )
+        used, reason = "objects", "objects mode: imgcut.objects.segment_objects"
+    elif sweep_segmenter is not None:
+        used, reason = "custom", "a sweep_segmenter was given"
+    elif method == "auto" and (first := _first_shape(items)) is not None:
+        used, reason = resolve_method("auto", first[1], opts)
+        reason = f"{reason}; decided on the first image, {first[0]}"
+    else:
+        used, reason = resolve_method(method, (1, 1), opts)
+    sweep_kind = "regions"
+    if used == "boundary":
+        bad = sorted(set(opts) - set(BOUNDARY_OPTIONS))
+        if bad:
+            raise ValueError(
+                f"segment option(s) {', '.join(bad)} not used by method boundary (it builds "
+                f"no pixel graph); it takes only {', '.join(BOUNDARY_OPTIONS)}"
+            )
+        if cts is None:
+            from imgcut.presets import get_preset
+
+            preset = get_preset(opts.get("preset", "photo"))
+            lvls = lvls if lvls is not None else tuple(preset.level_sweep)
+            sweep_kind = "level"
+    elif lvls is not None:
+        if used != "custom":
+            raise ValueError(
+                f"levels (hierarchy levels) apply to method boundary; {used} ran "
+                f"({reason}); give region counts instead"
+            )
+        sweep_kind = "level"
+    sweep_vals: tuple[float, ...] = (
+        lvls if sweep_kind == "level" else (cts if cts is not None else DEFAULT_SWEEP)
+    )  # type: ignore[assignment]
+    method_info = (method, used, reason)
+    args = (
+        run_mode, sweep_vals, opts, max_dist, ths, sweep_segmenter, object_segmenter,
+        method_info, sweep_kind,
+    )  # fmt: skip
     results: dict[str, ImageResult] = {}
     failures: list[tuple[str, str]] = []
 
@@ -616,10 +861,19 @@ def evaluate_dataset(
     out = EvaluationResult(
         dataset,
         run_mode,
-        cts if run_mode == "regions" else (),
+        sweep_vals if run_mode == "regions" else (),
         ordered,
         failures,
-        options={"max_dist": max_dist, "iou_thresholds": ths, "segment": opts, "limit": limit},
+        options={
+            "max_dist": max_dist,
+            "iou_thresholds": ths,
+            "segment": opts,
+            "limit": limit,
+            "method": {"asked": method, "used": used, "reason": reason},
+        },
+        sweep=sweep_kind,
+        method=used,
+        method_reason=reason,
     )
     if run_mode == "regions":
         out.regions = summarize_regions([[s.region for s in r.scores] for r in ordered])

@@ -33,6 +33,16 @@ def _parse_ints(text: str, flag: str) -> tuple[int, ...]:
     return tuple(sorted(set(vals)))
 
 
+def _parse_levels(text: str) -> tuple[float, ...]:
+    try:
+        vals = tuple(float(t) for t in text.replace(" ", "").split(",") if t)
+    except ValueError:
+        raise ValueError(f"--levels must be comma-separated numbers, got {text!r}") from None
+    if not vals or any(not math.isfinite(v) or v < 0 for v in vals):
+        raise ValueError(f"--levels must list hierarchy levels >= 0, got {text!r}")
+    return tuple(sorted(set(vals)))
+
+
 def _parse_floats(text: str, flag: str) -> tuple[float, ...]:
     try:
         vals = tuple(float(t) for t in text.replace(" ", "").split(",") if t)
@@ -79,12 +89,23 @@ def evaluate_command(
         Path | None, typer.Option("--out", "-o", help="Report folder (created). Required.")
     ] = None,
     regions: Annotated[
-        str,
+        str | None,
         typer.Option(
             "--regions",
-            help="Region counts swept per image (hierarchy levels), comma-separated.",
+            help="Region counts swept per image, comma-separated "
+            "[default: 2,3,4,6,8,12,16,24,32 for recursive and kway].",
+            show_default=False,
         ),
-    ] = "2,3,4,6,8,12,16,24,32",
+    ] = None,
+    levels: Annotated[
+        str | None,
+        typer.Option(
+            "--levels",
+            help="Method boundary: hierarchy levels swept per image, comma-separated "
+            "[default: the photo preset's level sweep, 0.3 to 0.9].",
+            show_default=False,
+        ),
+    ] = None,
     mode: Annotated[
         str,
         typer.Option(
@@ -93,8 +114,14 @@ def evaluate_command(
         ),
     ] = "auto",
     method: Annotated[
-        str, typer.Option("--method", help="Region method: recursive (one run) or kway.")
-    ] = "recursive",
+        str,
+        typer.Option(
+            "--method",
+            help="Region method, as for segment: auto (boundary for 3-channel colour images, "
+            "else recursive; decided from the first image), recursive, kway or boundary "
+            "(one region hierarchy per image gives the whole sweep).",
+        ),
+    ] = "auto",
     limit: Annotated[
         int | None, typer.Option("--limit", help="Score only the first N images.")
     ] = None,
@@ -113,7 +140,7 @@ def evaluate_command(
     Writes per_image.csv, summary.csv, summary.md, a precision-recall plot, a histogram
     and overlays of the best and worst images into the --out folder.
     """
-    from imgcut.evaluation import evaluate_dataset, write_report
+    from imgcut.evaluation import EVALUATION_METHODS, evaluate_dataset, write_report
     from imgcut.groundtruth import GroundTruthError, find_dataset
 
     name = "evaluate"
@@ -124,17 +151,30 @@ def evaluate_command(
             raise ValueError(f"--limit must be >= 1, got {limit}")
         if jobs < 1:
             raise ValueError(f"--jobs must be >= 1, got {jobs}")
-        counts = _parse_ints(regions, "--regions")
+        counts = _parse_ints(regions, "--regions") if regions is not None else None
+        lvls = _parse_levels(levels) if levels is not None else None
+        if counts is not None and lvls is not None:
+            raise ValueError("give --regions (region counts) or --levels (hierarchy levels)")
         ths = _parse_floats(iou, "--iou")
         if mode not in ("auto", "regions", "objects"):
             raise ValueError(f"--mode must be auto, regions or objects; got {mode!r}")
-        if method not in ("recursive", "kway"):
-            raise ValueError(f"--method must be recursive or kway; got {method!r}")
+        if method not in EVALUATION_METHODS:
+            raise ValueError(
+                f"--method must be one of {', '.join(EVALUATION_METHODS)}; got {method!r}"
+            )
+        if lvls is not None and method in ("recursive", "kway"):
+            raise ValueError(f"--levels applies to --method boundary (or auto), not {method}")
         if not (0 < max_dist < 1):
             raise ValueError(f"--max-dist must be in (0, 1), got {max_dist}")
         if not data_dir.exists():
             raise ValueError(f"{data_dir}: no such folder")
         dataset = find_dataset(data_dir)
+        objects = mode == "objects" or (mode == "auto" and dataset.layout != "bsds")
+        if objects and method in ("kway", "boundary"):
+            raise ValueError(
+                f"--method {method} applies to regions mode; objects mode segments with "
+                "imgcut.objects.segment_objects"
+            )
         if out.exists() and not out.is_dir():
             raise ValueError(f"{out}: exists and is not a folder")
         if out.resolve() == data_dir.resolve():
@@ -149,12 +189,13 @@ def evaluate_command(
             result = evaluate_dataset(
                 data_dir,
                 counts=counts,
+                levels=lvls,
                 mode=mode,
+                method=method,
                 limit=limit,
                 jobs=jobs,
                 max_dist=max_dist,
                 iou_thresholds=ths,
-                segment_options={"method": method} if method != "recursive" else {},
                 progress=bar,
             )
         written = write_report(result, out)
@@ -178,6 +219,11 @@ def _print_summary(result: Any, out: Path, n_files: int) -> None:
             f"{len(result.images)} images: covering ODS {r.covering_ods:.3f} OIS "
             f"{r.covering_ois:.3f} Best {r.covering_best:.3f}; PRI ODS {r.pri_ods:.3f}; "
             f"VoI ODS {r.voi_ods:.3f}; boundary F ODS {b.ods_f:.3f} OIS {b.ois_f:.3f}"
+        )
+        sweep = "Levels" if result.sweep == "level" else "Region counts"
+        typer.echo(
+            f"method {result.method}: {result.method_reason}. {sweep} swept: "
+            + ", ".join(f"{v:g}" if result.sweep == "level" else str(v) for v in result.counts)
         )
     else:
         s = result.instances
