@@ -93,6 +93,20 @@ def test_recursive_is_passed_on(colour_ds, tmp_path, monkeypatch):
     assert r.exit_code == 0 and seen[-1] == {"method": "kway"}
 
 
+def test_levels_on_a_grey_dataset_is_a_usage_error(tmp_path):
+    root = tmp_path / "grey"
+    (root / "images").mkdir(parents=True)
+    (root / "groundTruth").mkdir()
+    lab = _truth(0)
+    Image.fromarray((lab * 60).astype(np.uint8)).save(root / "images" / "g.png")
+    cells = np.empty((1, 1), dtype=object)
+    cells[0, 0] = {"Segmentation": lab.astype(np.uint16)}
+    sio.savemat(root / "groundTruth" / "g.mat", {"groundTruth": cells})
+    r = _run("evaluate", root, "--out", tmp_path / "r", "--levels", "0.5")
+    assert r.exit_code == 2, r.output
+    assert "auto picks recursive here (grey image" in r.stderr
+
+
 @pytest.mark.parametrize(
     ("extra", "needle"),
     [

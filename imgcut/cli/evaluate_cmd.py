@@ -92,8 +92,8 @@ def evaluate_command(
         str | None,
         typer.Option(
             "--regions",
-            help="Region counts swept per image, comma-separated "
-            "[default: 2,3,4,6,8,12,16,24,32 for recursive and kway].",
+            help="Region counts swept per image, comma-separated (default: "
+            "2,3,4,6,8,12,16,24,32 for recursive and kway; boundary sweeps --levels).",
             show_default=False,
         ),
     ] = None,
@@ -102,7 +102,7 @@ def evaluate_command(
         typer.Option(
             "--levels",
             help="Method boundary: hierarchy levels swept per image, comma-separated "
-            "[default: the photo preset's level sweep, 0.3 to 0.9].",
+            "(default: the photo preset's level sweep, 0.3 to 0.9 in steps of 0.025).",
             show_default=False,
         ),
     ] = None,
@@ -140,7 +140,13 @@ def evaluate_command(
     Writes per_image.csv, summary.csv, summary.md, a precision-recall plot, a histogram
     and overlays of the best and worst images into the --out folder.
     """
-    from imgcut.evaluation import EVALUATION_METHODS, evaluate_dataset, write_report
+    from imgcut.evaluation import (
+        EVALUATION_METHODS,
+        _first_shape,
+        evaluate_dataset,
+        resolve_method,
+        write_report,
+    )
     from imgcut.groundtruth import GroundTruthError, find_dataset
 
     name = "evaluate"
@@ -175,6 +181,16 @@ def evaluate_command(
                 f"--method {method} applies to regions mode; objects mode segments with "
                 "imgcut.objects.segment_objects"
             )
+        if lvls is not None and method == "auto" and not objects:
+            items = dataset.items[:limit] if limit else dataset.items
+            first = _first_shape(items)
+            if first is not None:
+                used, why = resolve_method("auto", first[1])
+                if used != "boundary":
+                    raise ValueError(
+                        f"--levels applies to method boundary; auto picks {used} here ({why}; "
+                        f"first image {first[0]})"
+                    )
         if out.exists() and not out.is_dir():
             raise ValueError(f"{out}: exists and is not a folder")
         if out.resolve() == data_dir.resolve():
