@@ -1,7 +1,9 @@
 """Score segmentations against human ground truth: one image, human agreement, whole datasets.
 
 The library side of ``imgcut score`` and ``imgcut evaluate``: the command line only parses
-options, shows progress and prints. Report files (CSV, Markdown, PNG plots) are written by
+options, shows progress and prints. Datasets are segmented with the region methods of
+``imgcut segment`` (``auto``, ``recursive``, ``kway``, ``boundary``), each image's sweep from
+one run or one region hierarchy. Report files (CSV, Markdown, PNG plots) are written by
 :func:`write_report`.
 """
 
@@ -540,7 +542,10 @@ def _evaluate_item_inner(
     if sweep_segmenter is not None:
         fn_sweep = sweep_segmenter
     elif used == "boundary":
-        opts = {k: v for k, v in segment_options.items() if k in BOUNDARY_OPTIONS}
+        from imgcut.runner import BOUNDARY_PRESET
+
+        opts = {"preset": BOUNDARY_PRESET}
+        opts.update({k: v for k, v in segment_options.items() if k in BOUNDARY_OPTIONS})
         fn_sweep = lambda im, c: boundary_sweep(im, c, by=sweep, **opts)  # noqa: E731
     else:
         opts = {**segment_options, "method": used} if used == "kway" else segment_options
@@ -802,8 +807,9 @@ def evaluate_dataset(
             )
         if cts is None:
             from imgcut.presets import get_preset
+            from imgcut.runner import BOUNDARY_PRESET
 
-            preset = get_preset(opts.get("preset", "photo"))
+            preset = get_preset(opts.get("preset", BOUNDARY_PRESET))
             lvls = lvls if lvls is not None else tuple(preset.level_sweep)
             sweep_kind = "level"
     elif lvls is not None:

@@ -138,7 +138,8 @@ def evaluate_command(
     """Segment every image of a dataset folder and score it against the human ground truth.
 
     Writes per_image.csv, summary.csv, summary.md, a precision-recall plot, a histogram
-    and overlays of the best and worst images into the --out folder.
+    and overlays of the best and worst images into the --out folder. Without --method,
+    colour photographs are scored with the boundary method, as segment would run them.
     """
     from imgcut.evaluation import (
         EVALUATION_METHODS,
