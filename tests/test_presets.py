@@ -94,4 +94,4 @@ def test_merge_fields_reach_the_hierarchy():
 
 def test_fluorescence_keeps_the_plain_mean_merge():
     p = presets.PRESETS["fluorescence"]
-    assert (p.size_scale, p.strength_power, p.min_area) == (0.0, 1.0, 0)
+    assert (p.size_scale, p.strength_power, p.min_area, p.contrast_power) == (0.0, 1.0, 0, 0.0)

@@ -102,3 +102,25 @@ def test_bad_input():
         sb.spectral_boundary(np.zeros((8, 8)), n_vectors=0)
     with pytest.raises(ValueError, match="downsample"):
         sb.spectral_boundary(np.zeros((8, 8)), downsample=0)
+
+
+def test_contrast_normalisation_moves_the_percentile_by_the_power_law():
+    # Scaling the tensor by g² scales sqrt(λ_max) by g (λ_max is 1-homogeneous), so with
+    # α = 1 the q-th percentile of the local strength lands exactly on the reference, and with
+    # α = 1/2 on the geometric mean of reference and original (no clipping: reference below).
+    from imgcut.presets import get_preset
+
+    rng = np.random.default_rng(5)
+    img = rng.random((40, 48, 3))
+    img[:, 24:] = np.clip(img[:, 24:] + 0.4, 0, 1)
+    off = sb.global_boundary(img, preset=get_preset("photo", contrast_power=0.0), seed=0)
+    q = float(np.percentile(off.local_strength, 90))
+    ref = 0.5 * q
+    for alpha, expected in ((1.0, ref), (0.5, np.sqrt(ref * q))):
+        p = get_preset(
+            "photo", contrast_power=alpha, contrast_reference=ref, contrast_percentile=90
+        )
+        on = sb.global_boundary(img, preset=p, seed=0)
+        assert np.percentile(on.local_strength, 90) == pytest.approx(expected, rel=1e-4)
+    with pytest.raises(ValueError, match="contrast"):
+        sb.global_boundary(img, preset=get_preset("photo", contrast_reference=0.0), seed=0)
