@@ -321,8 +321,13 @@ FLOAT32_MIN_TOL = 1e-6
 ARPACK_GUARD = 2
 
 
+#: Smallest Krylov basis of the ``"arpack"`` backend, whatever ``m``: the clustered bottom of
+#: an image graph's spectrum needs it even for two wanted pairs (docs/performance.md).
+ARPACK_MIN_BASIS = 48
+
+
 def _arpack_ncv(n: int, m: int) -> int:
-    ncv = min(max(5 * m + 10, 20), 64)
+    ncv = min(max(5 * m + 10, ARPACK_MIN_BASIS), 64)
     ncv = min(ncv, max(2 * m + 1, ARPACK_BASIS_BYTES // (8 * max(n, 1))))
     return int(min(n - 1, max(ncv, m + 2)))
 

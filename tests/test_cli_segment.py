@@ -21,7 +21,8 @@ from typer.testing import CliRunner
 
 from imgcut.cli import app
 from imgcut.io import read_image
-from imgcut.runner import SegmentOptions
+from imgcut.presets import get_preset
+from imgcut.runner import BOUNDARY_PRESET, SegmentOptions
 from imgcut.segment import segment
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -431,7 +432,8 @@ def test_installed_executable_agrees_with_the_library(tmp_path):
     record = json.loads(out["record"].read_text())
     assert record["method"]["asked"] == "auto" and record["method"]["used"] == "boundary"
     assert record["segmentation"]["preset"] == "photo"
-    assert record["options"]["n_regions"] == "default" and record["segmentation"]["level"] == 0.65
+    tuned = get_preset(BOUNDARY_PRESET).default_level  # the preset's tuned level, not a copy
+    assert record["options"]["n_regions"] == "default" and record["segmentation"]["level"] == tuned
     assert record["input"]["sha256"] == hashlib.sha256(sample.read_bytes()).hexdigest()
     masks = sorted((tmp_path / "scene.masks").iterdir())
     assert len(masks) == n_regions
