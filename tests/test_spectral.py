@@ -374,3 +374,33 @@ def test_stored_zero_weights_do_not_connect_components():
     np.testing.assert_allclose(ep.values, [0.0, 0.0], atol=1e-12)
     # the caller's matrix is left as it was
     assert W.nnz == 6 and W.indptr.tolist() == [0, 1, 3, 5, 6]
+
+
+# ---------------------------------------------------------------------------------------------
+# The tuned Lanczos backend (default above 1000 nodes)
+# ---------------------------------------------------------------------------------------------
+
+
+def test_scaled_affinity_matches_the_sparse_product():
+    from imgcut.spectral import _scaled_affinity
+
+    W = random_image_graph(9, 11, seed=3)
+    s = np.random.default_rng(1).uniform(0.5, 2.0, W.shape[0])
+    direct = (sp.diags(s) @ W @ sp.diags(s)).toarray()
+    np.testing.assert_allclose(_scaled_affinity(W, s).toarray(), direct, rtol=1e-14, atol=0)
+
+
+@pytest.mark.parametrize("tol", [1e-5, 1e-9])
+def test_auto_lanczos_meets_tol_and_finds_the_smallest_set(tol):
+    # Reference: LAPACK eigh on the dense normalised Laplacian (Chung 1997, sec. 1.2). At
+    # tol 1e-5 the products run in float32 (FLOAT32_MIN_TOL), at 1e-9 in float64; both must
+    # meet tol in float64 and return the k smallest eigenvalues, not a neighbouring set.
+    W = random_image_graph(40, 40, seed=8)
+    k = 8
+    ep = laplacian_eigenpairs(W, k, tol=tol, seed=0)
+    assert ep.solver == "arpack" and ep.converged
+    assert np.all(ep.residuals <= tol)
+    ref = scipy.linalg.eigh(normalized_laplacian(W).toarray(), eigvals_only=True)[:k]
+    np.testing.assert_allclose(ep.values, ref, atol=max(tol, 1e-12))
+    # The guard pairs lie at or above the last returned eigenvalue.
+    assert min(ep.info["guard_values"]) >= ep.values[-1] - tol
