@@ -205,6 +205,18 @@ def spectral_boundary(
     )
 
 
+def _contrast_normalise(local: np.ndarray, p) -> tuple[np.ndarray, np.ndarray]:
+    """Per-image gain of a local tensor (see :func:`global_boundary`, Notes); (tensor, strength)."""
+    strength = np.sqrt(np.clip(_lambda_max(local), 0.0, 1.0))
+    if p.contrast_power > 0:
+        q = float(np.percentile(strength, p.contrast_percentile))
+        if q > 0:
+            gain = (p.contrast_reference / q) ** p.contrast_power
+            local = np.clip(local * np.float32(gain * gain), -1.0, 1.0)
+            strength = np.sqrt(np.clip(_lambda_max(local), 0.0, 1.0))
+    return local, strength
+
+
 @dataclass(frozen=True)
 class GlobalBoundary:
     """Boundary signal of an image under a preset: local cues plus, optionally, the spectral term.
@@ -293,13 +305,7 @@ def global_boundary(
     t0 = time.perf_counter()
     cues = local_cues(image, seed=rng, **p.cue_options())
     local = combine_cues(cues, p.weights())
-    local_strength = np.sqrt(np.clip(_lambda_max(local), 0.0, 1.0))
-    if p.contrast_power > 0:  # per-image contrast normalisation (see Notes)
-        q = float(np.percentile(local_strength, p.contrast_percentile))
-        if q > 0:
-            gain = (p.contrast_reference / q) ** p.contrast_power
-            local = np.clip(local * np.float32(gain * gain), -1.0, 1.0)
-            local_strength = np.sqrt(np.clip(_lambda_max(local), 0.0, 1.0))
+    local, local_strength = _contrast_normalise(local, p)
     t1 = time.perf_counter()
     spec = None
     tensor = local
