@@ -152,10 +152,8 @@ class BoundaryPreset:
 #   local strength, fitted on the same 100 train images (percentile ∈ {50, 90, 99}, α ∈ {0.5,
 #   1}) and confirmed on all 200; the reference is the median over the 200 train images of
 #   the 90th percentile of the local strength (0.746).
-# - default_level: 0.65. The level of best covering (ODS) on all 200 train images is 0.625
-#   (covering 0.597 there, 0.591 at 0.65); the default stays at 0.65 for now because
-#   tests/test_cli_segment.py pins the level of the default `imgcut segment` record to 0.65.
-#   level_sweep is the benchmark's shared sweep.
+# - default_level: the level of best covering (ODS) on all 200 train images (0.597 there, 0.591
+#   at 0.65); level_sweep is the benchmark's shared sweep.
 _PHOTO = BoundaryPreset(
     name="photo",
     contrast_percentile=90.0,
@@ -165,7 +163,7 @@ _PHOTO = BoundaryPreset(
     size_scale=0.001,  # a₀ ≈ 150 px on a 481 × 321 photograph
     size_power=0.5,
     min_area=100,
-    default_level=0.65,
+    default_level=0.625,
     level_sweep=tuple(round(0.025 * i, 3) for i in range(12, 37)),
 )
 

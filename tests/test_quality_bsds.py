@@ -56,8 +56,8 @@ def test_photo_preset_quality_on_ten_val_images(shared_data):
     precision, recall = counts[0] / counts[1], counts[2] / counts[3]
     f = 2 * precision * recall / (precision + recall)
     # Measured when the preset was fixed (2026-12-02, preset "photo" with contrast
-    # normalisation and the fitted merge score, level 0.65): covering 0.510, boundary F 0.639
-    # (P 0.825, R 0.522); the first preset measured 0.510 and 0.660 here.  Floors sit ~0.035
+    # normalisation and the fitted merge score, level 0.625): covering 0.514, boundary F 0.655
+    # (P 0.806, R 0.551); the first preset measured 0.510 and 0.660 here.  Floors sit ~0.035
     # below the measured values.
-    assert covering >= 0.475, f"covering {covering:.3f} fell below the floor 0.475 (was 0.510)"
-    assert f >= 0.605, f"boundary F {f:.3f} fell below the floor 0.605 (was 0.639)"
+    assert covering >= 0.48, f"covering {covering:.3f} fell below the floor 0.48 (was 0.514)"
+    assert f >= 0.62, f"boundary F {f:.3f} fell below the floor 0.62 (was 0.655)"
