@@ -432,7 +432,10 @@ def _segmentation_options(
         typer.Option(
             "--solver",
             rich_help_panel=PANEL_GRAPH,
-            help="Eigensolver: auto, lobpcg-amg, arpack or dense.",
+            help=(
+                "Eigensolver: auto (dense up to 1000 nodes, tuned Lanczos above), "
+                "arpack, lobpcg-amg or dense."
+            ),
         ),
     ] = "auto",
     scale: Annotated[
