@@ -304,11 +304,12 @@ def _solve_dense(Lc: sp.csr_matrix, m: int) -> _Solved:
     return _Solved(vals[1 : m + 1], vecs[:, 1 : m + 1], 0, "dense")
 
 
-#: Krylov subspace size of the ``"arpack"`` backend for ``m`` wanted eigenpairs: about
-#: ``5 m + 10`` basis vectors, at least 20 and at most 64, and at most ``ARPACK_BASIS_BYTES``
-#: of basis. scipy's default (``2 m + 1``, at least 20) restarts so often on the clustered
-#: spectrum of an image graph that it needs about 4x more products (measured with
-#: ``benchmarks/bench_eigensolver.py``; docs/performance.md).
+#: Krylov subspace size of the ``"arpack"`` backend for ``m`` wanted eigenpairs (guards
+#: included): ``max(5 m + 10, ARPACK_MIN_BASIS)`` basis vectors, at most 64, and at most
+#: ``ARPACK_BASIS_BYTES`` of basis. scipy's default (``2 m + 1``, at least 20) restarts so
+#: often on the clustered spectrum of an image graph that it needed 4.3x more products on a
+#: BSDS graph with sigma_edge x 4, and 1.55x more CPU at the default sigmas
+#: (docs/performance.md).
 ARPACK_BASIS_BYTES = 512 * 1024**2
 
 #: Products with ``D^-1/2 W D^-1/2`` run in float32 when ``tol`` is at least this: they
@@ -491,8 +492,8 @@ def laplacian_eigenpairs(
     solver : {"auto", "lobpcg-amg", "arpack", "dense"}, default "auto"
         ``"arpack"``: implicitly restarted Lanczos (``scipy.sparse.linalg.eigsh``) on
         the largest eigenvalues of ``D^-1/2 W D^-1/2``, with the null vector deflated, a
-        Krylov basis of about ``5 m + 10`` vectors (scipy's default of ``2 m + 1``
-        restarts too often on the clustered spectra of image graphs), two guard
+        Krylov basis of ``max(5 m + 10, 48)`` vectors, at most 64 (scipy's default of
+        ``2 m + 1`` restarts too often on the clustered spectra of image graphs), two guard
         eigenpairs, float32 products when ``tol >= FLOAT32_MIN_TOL`` and a float64
         Rayleigh-Ritz step at the end; the default for large graphs.
         ``"lobpcg-amg"``: LOBPCG preconditioned by a smoothed-aggregation multigrid
@@ -620,9 +621,6 @@ def laplacian_eigenpairs(
             v[idx] = 1.0
         return v
 
-    def backend_of(n_c: int, m: int) -> str:
-        return _component_solver(solver, n_c, m)
-
     cand_vals: list[float] = []
     cand_vecs: list[np.ndarray] = []
     n_null = min(n_comp, k)
@@ -647,13 +645,13 @@ def laplacian_eigenpairs(
             idx = np.flatnonzero(labels == c)
             Wc = W[idx][:, idx] if n_comp > 1 else W
             dc = d[idx]
+            backend = _component_solver(solver, n_c, m)
             Sc = _scaled_affinity(Wc, 1.0 / np.sqrt(dc))
-            Lc = None if backend_of(n_c, m) == "arpack" else _identity_minus(Sc)
+            Lc = None if backend == "arpack" else _identity_minus(Sc)
             u = sqrt_d[idx] / np.sqrt(dc.sum())
             x0c = None
             if x0 is not None:
                 x0c = x0[idx] * sqrt_d[idx, None]  # y -> v = D^1/2 y
-            backend = _component_solver(solver, n_c, m)
             ts = time.perf_counter()
             if backend == "dense":
                 res = _solve_dense(Lc, m)
