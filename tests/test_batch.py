@@ -167,6 +167,36 @@ def test_dead_worker_fails_only_its_image(tmp_path):
     assert header == ",".join(SUMMARY_COLUMNS)
 
 
+def test_pool_broken_at_submit_loses_no_image(tmp_path, monkeypatch):
+    # A worker can die between a wait and the next submit; the executor then refuses the
+    # submit with BrokenProcessPool (concurrent.futures documents this). Simulate exactly that
+    # on the first submit: the image must go back to its queue and every image still be done.
+    import concurrent.futures as cf
+
+    import imgcut.batch as batch_mod
+
+    calls = {"n": 0}
+
+    class _BreaksOnce(cf.ProcessPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):
+            calls["n"] += 1
+            if calls["n"] == 2:
+                raise cf.process.BrokenProcessPool("simulated: a worker died")
+            return super().submit(fn, *args, **kwargs)
+
+    monkeypatch.setattr(batch_mod.cf, "ProcessPoolExecutor", _BreaksOnce)
+    src = tmp_path / "in"
+    src.mkdir()
+    for i in range(4):
+        (src / f"f{i}.tif").write_text(f"IMG{i}")
+    report = run_batch(src, tmp_path / "out", workers=2, gallery=False, pipeline=_FakePipeline())
+    assert calls["n"] >= 5  # the refused submit was retried on a fresh pool
+    assert sorted((r.path, r.status) for r in report.results) == [
+        (f"f{i}.tif", "done") for i in range(4)
+    ]
+    assert report.exit_code == 0
+
+
 # ---------------------------------------------------------------------------------------------
 # The real pipeline on a mixed folder of tiny images
 # ---------------------------------------------------------------------------------------------
