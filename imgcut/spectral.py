@@ -306,9 +306,10 @@ def _solve_dense(Lc: sp.csr_matrix, m: int) -> _Solved:
 
 #: Krylov subspace size of the ``"arpack"`` backend for ``m`` wanted eigenpairs (guards
 #: included): ``max(5 m + 10, ARPACK_MIN_BASIS)`` basis vectors, at most 64, and at most
-#: ``ARPACK_BASIS_BYTES`` of basis. scipy's default (``2 m + 1``, at least 20) restarts so
-#: often on the clustered spectrum of an image graph that it needed 4.3x more products on a
-#: BSDS graph with sigma_edge x 4, and 1.55x more CPU at the default sigmas
+#: ``ARPACK_BASIS_BYTES`` of basis (so 64 on images up to about a megapixel). scipy's
+#: default (``2 m + 1``, at least 20) restarts so often on the clustered spectrum of an
+#: image graph that it needed 4.3x more products on a BSDS graph with sigma_edge x 4, and
+#: 1.55x more CPU at the default sigmas
 #: (docs/performance.md).
 ARPACK_BASIS_BYTES = 512 * 1024**2
 
@@ -318,13 +319,15 @@ ARPACK_BASIS_BYTES = 512 * 1024**2
 FLOAT32_MIN_TOL = 1e-6
 
 
-#: Extra eigenpairs the ``"arpack"`` backend computes beyond those asked for.
+#: Extra eigenpairs the ``"arpack"`` backend computes beyond those asked for. With one guard
+#: the same k = 3 solve returned 1.145e-6, 2.575e-6 and missed 1.486e-6; with two it did not.
 ARPACK_GUARD = 2
 
 
 #: Smallest Krylov basis of the ``"arpack"`` backend, whatever ``m``: the clustered bottom of
-#: an image graph's spectrum needs it even for two wanted pairs (docs/performance.md).
-ARPACK_MIN_BASIS = 48
+#: an image graph's spectrum needs it even for two wanted pairs (481x321 BSDS graph, k = 3:
+#: 7151 products with a basis of 30, 5943 with 48, 4440 with 64; docs/performance.md).
+ARPACK_MIN_BASIS = 64
 
 
 def _arpack_ncv(n: int, m: int) -> int:
@@ -492,7 +495,7 @@ def laplacian_eigenpairs(
     solver : {"auto", "lobpcg-amg", "arpack", "dense"}, default "auto"
         ``"arpack"``: implicitly restarted Lanczos (``scipy.sparse.linalg.eigsh``) on
         the largest eigenvalues of ``D^-1/2 W D^-1/2``, with the null vector deflated, a
-        Krylov basis of ``max(5 m + 10, 48)`` vectors, at most 64 (scipy's default of
+        Krylov basis of 64 vectors when memory allows (scipy's default of
         ``2 m + 1`` restarts too often on the clustered spectra of image graphs), two guard
         eigenpairs, float32 products when ``tol >= FLOAT32_MIN_TOL`` and a float64
         Rayleigh-Ritz step at the end; the default for large graphs.
