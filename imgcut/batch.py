@@ -772,6 +772,26 @@ def _relative_overlay(pipeline: Any, item: BatchItem, options: Any, out_root: Pa
 _DIED = "the worker process running this image died (out of memory, or killed)"
 
 
+def _submit(
+    executor: cf.ProcessPoolExecutor,
+    in_flight: dict[cf.Future, tuple[BatchItem, bool]],
+    queue: deque[BatchItem],
+    isolated: bool,
+    pipeline: Any,
+    options: Any,
+) -> bool:
+    """Start the first image of `queue`; False, with the image back in its queue, when the
+    pool broke since the last wait (a worker died while another image finished)."""
+    item = queue.popleft()
+    try:
+        future = executor.submit(_local_task, pipeline, item, options)
+    except cf.process.BrokenProcessPool:
+        queue.appendleft(item)
+        return False
+    in_flight[future] = (item, isolated)
+    return True
+
+
 def _run_local(
     todo: list[BatchItem],
     options: Any,
@@ -798,6 +818,7 @@ def _run_local(
         )
         in_flight: dict[cf.Future, tuple[BatchItem, bool]] = {}  # future → (item, isolated)
         broken = False
+
         try:
             while (pending or suspects or in_flight) and not broken:
                 # At most one image per worker in flight (none queued): a dead worker then
@@ -807,26 +828,12 @@ def _run_local(
                 # broken pool is handled below like any other.
                 if suspects:
                     if not in_flight:
-                        item = suspects.popleft()
-                        try:
-                            future = executor.submit(_local_task, pipeline, item, options)
-                        except cf.process.BrokenProcessPool:
-                            suspects.appendleft(item)
-                            broken = True
-                            break
-                        in_flight[future] = (item, True)
+                        broken = not _submit(executor, in_flight, suspects, True, pipeline, options)
                 else:
-                    while pending and len(in_flight) < workers:
-                        item = pending.popleft()
-                        try:
-                            future = executor.submit(_local_task, pipeline, item, options)
-                        except cf.process.BrokenProcessPool:
-                            pending.appendleft(item)
-                            broken = True
-                            break
-                        in_flight[future] = (item, False)
-                    if broken:
-                        break
+                    while pending and len(in_flight) < workers and not broken:
+                        broken = not _submit(executor, in_flight, pending, False, pipeline, options)
+                if broken:
+                    break
                 done, _ = cf.wait(in_flight, return_when=cf.FIRST_COMPLETED)
                 for future in done:
                     try:
