@@ -45,7 +45,7 @@ import scipy.sparse.csgraph as csgraph
 from imgcut._errors import EigenConvergenceWarning
 from imgcut.features import Features, compute_features
 from imgcut.graph import AffinityGraph, affinity_graph
-from imgcut.spectral import DENSE_MAX_NODES, Eigenpairs, laplacian_eigenpairs
+from imgcut.spectral import Eigenpairs, laplacian_eigenpairs
 
 __all__ = [
     "AUTO_MULTISCALE_PIXELS",
@@ -73,6 +73,13 @@ _GUARD = 0
 # Shift of the preconditioned operator A + sigma B (B-relative, so the pencil's eigenvalues
 # near 0 are not amplified beyond 1/sigma); chosen by trials on 96x96 photographs.
 _PRECOND_SHIFT = 0.1
+# Damping of the Jacobi steps of the compatible relaxation (common practice for Jacobi
+# smoothing on graphs with odd cycles; 1.0 oscillates on bipartite stencils).
+_RELAX_OMEGA = 0.8
+# Levels with more pixels than this are refined by compatible relaxation instead of LOBPCG
+# (relax_levels="auto"); a choice of this project, measured in docs/multiscale.md.
+RELAX_MIN_PIXELS = 100_000
+_RELAX_STEPS = 8
 _RESYNC = 5  # LOBPCG iterations between explicit recomputations of A X and B X
 _TRACE = None  # debugging hook: a list collects the residuals of every LOBPCG iteration
 
@@ -233,6 +240,16 @@ class _Grid:
         g = z.reshape(hc, 1, wc, 1, m)
         g = np.broadcast_to(g, (hc, 2, wc, 2, m)).reshape(2 * hc, 2 * wc, m)
         return np.ascontiguousarray(g[:h, :w]).reshape(h * w, m)
+
+    def add_expanded(self, x: np.ndarray, z: np.ndarray) -> None:
+        """``x += P z`` in place (no full-size temporary when both sides are even)."""
+        h, w = self.shape
+        if h % 2 or w % 2:
+            x += self.expand(z)
+            return
+        hc, wc = self.coarse
+        m = x.shape[1]
+        x.reshape(hc, 2, wc, 2, m)[...] += z.reshape(hc, 1, wc, 1, m)
 
     def average_t(self, z: np.ndarray) -> np.ndarray:
         """``C^T z``."""
@@ -631,9 +648,7 @@ class _VCycle:
         self.prob = prob
         self.sigma = sigma
         S = prob.n_levels - 1
-        self.inv_diag = [
-            None if s == S else 1.0 / prob.l1_diagonal(s, sigma) for s in range(S + 1)
-        ]
+        self.inv_diag = [None if s == S else 1.0 / prob.l1_diagonal(s, sigma) for s in range(S + 1)]
         G = prob._levels[S].G
         d = prob._deg[S]
         M = sp.csr_matrix(sp.diags((1.0 + sigma) * d) - G)
@@ -691,8 +706,10 @@ def _refine(
     B1 = B(one)
     n1 = float(one[:, 0] @ B1[:, 0])
 
+    b1 = B1[:, 0] / n1
+
     def deflate(V):
-        return V - one @ ((B1.T @ V) / n1)
+        return V - (b1 @ V)[None, :]  # remove the B-component along the constant
 
     X = deflate(X)
     BX = B(X)
@@ -762,6 +779,54 @@ def _refine(
     return lam, X, res, it
 
 
+def _compatible_relaxation(
+    prob: MultiscaleProblem, s: int, Y: np.ndarray, target: np.ndarray, steps: int
+) -> np.ndarray:
+    """Place the prolonged vectors' transitions inside the blocks of level ``s``.
+
+    With the block means ``C y = target`` held fixed, the coarse terms of the pencil are
+    constant, so the within-block part of an eigenvector with a small eigenvalue minimises
+    ``y^T L(G_s) y`` alone. Damped Jacobi steps on ``L(G_s)`` followed by restoring the block
+    means solve that constrained problem; it is local (high-frequency) and converges in a few
+    steps, moving each transition onto the weakest links of the level's own short-radius graph
+    -- the image edges. This is compatible relaxation (Brandt, "General highly accurate
+    algebraic coarsening", ETNA 10, 2000; Livne, Numer. Linear Algebra Appl. 11, 2004).
+    """
+    lev = prob._levels[s]
+    G, grid = lev.G, lev.grid
+    omega = _RELAX_OMEGA
+    # J = w (D - diag G)^-1 (G - diag G): one scaled copy of G's values per level.
+    n = G.shape[0]
+    counts = np.diff(G.indptr)
+    rows = np.repeat(np.arange(n, dtype=G.indices.dtype), counts)
+    on_diag = G.indices == rows
+    inv = omega / np.maximum(prob._deg[s] - G.diagonal(), 1e-300)
+    data = G.data * np.repeat(inv, counts)
+    data[on_diag] = 0.0
+    J = sp.csr_matrix((data, G.indices, G.indptr), shape=G.shape)
+    Y = np.array(Y, dtype=np.float64, order="C")  # a private copy: updated in place below
+    for _ in range(steps):
+        Y_new = J @ Y
+        Y *= 1.0 - omega  # in place: full-size temporaries cost page faults at megapixels
+        Y_new += Y
+        Y = Y_new
+        grid.add_expanded(Y, target - grid.average(Y))
+    return Y
+
+
+def _relaxed_levels(shapes: list, relax_levels: int | str) -> int:
+    """Number of finest levels refined by compatible relaxation (the coarsest never is)."""
+    n_coarse = len(shapes) - 1
+    if relax_levels == "auto":
+        big = [h * w > RELAX_MIN_PIXELS for h, w in shapes[:n_coarse]]
+        return int(sum(big))
+    if isinstance(relax_levels, bool) or not isinstance(relax_levels, int | np.integer):
+        raise ValueError(f"relax_levels must be 'auto' or an integer >= 0, got {relax_levels!r}")
+    if relax_levels < 0:
+        raise ValueError(f"relax_levels must be 'auto' or an integer >= 0, got {relax_levels!r}")
+    return int(min(relax_levels, n_coarse))
+
+
 def _fix_signs(Y: np.ndarray) -> np.ndarray:
     idx = np.argmax(np.abs(Y), axis=0)
     signs = np.sign(Y[idx, np.arange(Y.shape[1])])
@@ -786,6 +851,8 @@ def multiscale_eigenpairs(
     coarsest_pixels: int = _COARSEST_PIXELS,
     preconditioner: str = "vcycle",
     problem: MultiscaleProblem | None = None,
+    relax_levels: int | str = "auto",
+    relax_steps: int = _RELAX_STEPS,
 ) -> Eigenpairs:
     """Smallest eigenpairs of the multiscale normalized-cut pencil at full resolution.
 
@@ -871,7 +938,7 @@ def multiscale_eigenpairs(
     if not (isinstance(tol, int | float | np.floating) and np.isfinite(tol) and tol > 0):
         raise ValueError(f"tol must be a positive finite number; got {tol!r}")
     if maxiter is not None and (
-        isinstance(maxiter, bool) or not isinstance(maxiter, int | np.integer) or maxiter < 1
+        isinstance(maxiter, bool) or not isinstance(maxiter, int | np.integer) or maxiter < 0
     ):
         raise ValueError(f"maxiter must be None or a positive integer; got {maxiter!r}")
     if preconditioner not in _PRECONDITIONERS:
@@ -899,7 +966,7 @@ def multiscale_eigenpairs(
     t0 = time.perf_counter()
     Gs = problem._levels[S].G
     nS = Gs.shape[0]
-    coarse_solver = "dense" if nS <= DENSE_MAX_NODES else "auto"
+    coarse_solver = "auto"  # LAPACK up to 1000 nodes, Lanczos above (spectral.py)
     coarse = laplacian_eigenpairs(
         Gs, min(k + _GUARD, nS), solver=coarse_solver, tol=min(tol, 1e-6), seed=rng
     )
@@ -926,6 +993,8 @@ def multiscale_eigenpairs(
     m = k - 1 if n_comp == 1 else k
     if Y.shape[1] < m:  # coarse grid smaller than k: fill with random columns
         Y = np.hstack([Y, rng.standard_normal((nS, m - Y.shape[1]))])
+    n_relax = _relaxed_levels(problem.shapes, relax_levels)
+    info["relaxed_levels"] = n_relax
     t0 = time.perf_counter()
     precond = _VCycle(problem, _PRECOND_SHIFT, rng) if preconditioner == "vcycle" else None
     timings["precond_setup"] = time.perf_counter() - t0
@@ -935,8 +1004,17 @@ def multiscale_eigenpairs(
     X = Y
     lam, res = np.zeros(0), np.zeros(0)
     for s in range(S - 1, -1, -1) if m > 0 else ():
+        target = X
         X = problem._levels[s].grid.expand(X)
         final = s == 0
+        if s < n_relax:
+            X = _compatible_relaxation(problem, s, X, target, relax_steps)
+            if not final:
+                # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
+                lam, X, res, _ = _refine(problem, s, X, tol, 0, None, n_wanted=m)
+                iters.append(0)
+                level_res.append(float(res.max()) if res.size else 0.0)
+                continue
         it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
         lam, X, res, it = _refine(problem, s, X, tol, it_max, precond, n_wanted=m)
         iters.append(it)

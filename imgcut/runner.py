@@ -35,6 +35,7 @@ import imgcut
 from imgcut._errors import ImageReadError, OutputExistsError, OutputFolderError
 from imgcut.export import LABEL_FORMATS, output_names, record_to_json, render_outputs
 from imgcut.io import DEFAULT_MAX_PIXELS, atomic_write, read_image, stale_partials
+from imgcut.multiscale import AUTO_MULTISCALE_PIXELS as _AUTO_MULTI
 
 __all__ = [
     "CUES",
@@ -207,7 +208,7 @@ class SegmentOptions:
     min_area: int | None = None
     connected: bool = True
     solver: str = "auto"
-    tol: float = 1e-5
+    tol: float | None = None
     maxiter: int | None = None
     seed: int | None = 0
     n_eigenvectors: int | None = None
@@ -386,7 +387,7 @@ def _check(o: SegmentOptions) -> None:
         o.min_area,
     )
     choice("solver", _solvers())
-    need(number(o.tol) and 0 < o.tol < 1, "tol", "in (0, 1)", o.tol)
+    need(o.tol is None or (number(o.tol) and 0 < o.tol < 1), "tol", "in (0, 1)", o.tol)
     need(o.maxiter is None or integer(o.maxiter, 1), "maxiter", "an integer ≥ 1", o.maxiter)
     need(o.seed is None or integer(o.seed, 0), "seed", "an integer ≥ 0", o.seed)
     need(
@@ -652,6 +653,13 @@ def choose_method(options: SegmentOptions, shape: tuple[int, ...]) -> tuple[str,
         return options.method, f"method {options.method} was asked for"
     if len(shape) != 3 or shape[2] != 3:
         what = "grey" if len(shape) == 2 else f"{shape[2]}-channel"
+        pixels = int(shape[0]) * int(shape[1])
+        if options.scale == "auto" and options.n_regions is not None and pixels > _AUTO_MULTI:
+            return (
+                "kway",
+                f"{what} image of {pixels} pixels (over {_AUTO_MULTI}): k-way normalized cut "
+                "on the multiscale graph, the default for large images",
+            )
         return (
             "recursive",
             f"{what} image: recursive normalized cuts, the default for grey and microscopy images",

@@ -17,7 +17,7 @@ import numpy as np
 
 from imgcut.features import compute_features
 from imgcut.graph import DEFAULT_MEMORY_BUDGET, affinity_graph
-from imgcut.multiscale import multiscale_eigenpairs, multiscale_problem
+from imgcut.multiscale import AUTO_MULTISCALE_PIXELS, multiscale_eigenpairs, multiscale_problem
 from imgcut.partition import Hierarchy, SplitRecord, kway_ncut, recursive_ncut
 from imgcut.regions import enforce_connectivity, pair_weights, renumber_raster
 from imgcut.spectral import SOLVERS, laplacian_eigenpairs
@@ -35,7 +35,15 @@ MIN_AREA_FRACTION = 0.001
 #: Eigenpairs solved on the whole image by default for ``method="recursive"``.
 RECURSIVE_EIGENVECTORS = 3
 #: Valid values of ``scale``.
-SCALES = ("single", "multi")
+SCALES = ("auto", "single", "multi")
+#: Default ``tol`` of the single-scale path.
+SINGLE_SCALE_TOL = 1e-5
+#: Default ``tol`` of the multiscale path: the residual its coarse-to-fine refinement
+#: (compatible relaxation and a Rayleigh-Ritz step at full resolution) reaches on BSDS500 and
+#: synthetic micrographs (docs/multiscale.md); full-resolution LOBPCG runs only above it.
+MULTISCALE_TOL = 3e-2
+#: Default cap of the full-resolution LOBPCG iterations on the multiscale path.
+MULTISCALE_MAXITER = 10
 #: Radius of the full-resolution graph on the multiscale path (8 neighbours).
 MULTISCALE_RADIUS_FINE = 1.5
 
@@ -211,13 +219,13 @@ def segment(
     min_area: int | None = None,
     connected: bool = True,
     solver: str = "auto",
-    tol: float = 1e-5,
+    tol: float | None = None,
     maxiter: int | None = None,
     seed: None | int | np.random.Generator = 0,
     mask: Any = None,
     n_eigenvectors: int | None = None,
     memory_budget: int | None = DEFAULT_MEMORY_BUDGET,
-    scale: str = "single",
+    scale: str = "auto",
 ) -> Segmentation:
     """Segment an image into regions by normalized cuts.
 
@@ -259,10 +267,12 @@ def segment(
         False returns the normalized-cut classes as they are.
     solver : {"auto", "lobpcg-amg", "arpack", "dense"}, default "auto"
         Eigensolver backend (see :func:`imgcut.spectral.laplacian_eigenpairs`).
-    tol : float, default 1e-5
-        Residual tolerance of every eigensolve.
+    tol : float, optional
+        Residual tolerance of every eigensolve. None: ``SINGLE_SCALE_TOL`` (1e-5) on the
+        single-scale path, ``MULTISCALE_TOL`` (3e-2) on the multiscale path.
     maxiter : int, optional
-        Iteration limit of the iterative eigensolver.
+        Iteration limit of the iterative eigensolver (the backend's default when None; on the
+        multiscale path the full-resolution LOBPCG iterations, ``MULTISCALE_MAXITER``).
     seed : None, int or numpy.random.Generator, default 0
         Seeds every random start (eigensolver blocks, discretisation, k-means); the same
         image, options and integer seed give the same labels.
@@ -274,16 +284,16 @@ def segment(
     memory_budget : int or None, default 4 GiB
         Refuse graphs whose estimated peak memory exceeds this many bytes
         (:class:`~imgcut._errors.GraphTooLargeError`); None: no limit.
-    scale : {"single", "multi"}, default "single"
+    scale : {"auto", "single", "multi"}, default "auto"
         ``"single"``: one pixel graph of the given ``radius``. ``"multi"``: the multiscale
         pencil of :mod:`imgcut.multiscale` (Cour, Benezit & Shi 2005): a radius-1.5 graph at
         full resolution plus long-range links (``radius``) on block-averaged coarse levels,
-        solved coarse to fine; much less memory and time on large images, partitioned with
-        ``method="kway"`` (required), no ``mask``. Its eigensolves usually stop above
-        ``tol`` and warn; see ``docs/multiscale.md``. ``memory_budget`` guards the
-        single-scale graph only: the multiscale path was measured at about 1.5 kB per pixel
-        (6.2 GB at 2048 x 2048), almost all of it LOBPCG blocks, and is not checked beforehand.
-
+        solved coarse to fine; much less time and memory on large images, partitioned with
+        ``method="kway"`` (required), no ``mask``. ``"auto"``: ``"multi"`` for
+        ``method="kway"`` without a mask on images of more than
+        :data:`imgcut.multiscale.AUTO_MULTISCALE_PIXELS` pixels, else ``"single"``.
+        ``memory_budget`` guards the single-scale graph only (the multiscale path's peak
+        memory is measured in ``docs/multiscale.md``).
     Returns
     -------
     Segmentation
@@ -360,6 +370,14 @@ def segment(
     if not isinstance(connected, bool | np.bool_):
         raise ValueError(f"connected must be True or False, got {connected!r}")
     _check_choice("scale", scale, SCALES)
+    scale_asked = scale
+    if scale == "auto":
+        big = int(np.prod(np.shape(image)[:2])) > AUTO_MULTISCALE_PIXELS
+        scale = "multi" if (big and method == "kway" and mask is None) else "single"
+    if tol is None:
+        tol = MULTISCALE_TOL if scale == "multi" else SINGLE_SCALE_TOL
+    if maxiter is None and scale == "multi":
+        maxiter = MULTISCALE_MAXITER
     if scale == "multi" and method != "kway":
         raise ValueError(
             "scale='multi' needs method='kway' (recursive re-solves would drop the coarse levels)"
@@ -472,7 +490,8 @@ def segment(
         "mask": mask is not None,
         "n_eigenvectors": int(ep.k),
         "memory_budget": memory_budget,
-        "scale": scale,
+        "scale": scale_asked,
+        "scale_used": scale,
         "image_shape": [int(s) for s in np.shape(image)],
         "image_dtype": str(np.asarray(image).dtype),
         "feature_kind": feats.kind,
@@ -481,6 +500,13 @@ def segment(
         "constant_image": constant,
         "n_eigensolves": 1 + (hierarchy.n_eigensolves if hierarchy is not None else 0),
     }
+    if problem is not None:
+        params["multiscale"] = {
+            "shapes": ep.info.get("shapes"),
+            "radii": ep.info.get("radii"),
+            "relaxed_levels": ep.info.get("relaxed_levels"),
+            "level_iterations": ep.info.get("level_iterations"),
+        }
     return Segmentation(
         labels=labels,
         eigenvalues=np.asarray(ep.values, dtype=np.float64),

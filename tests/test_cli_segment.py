@@ -477,7 +477,7 @@ def test_scale_multi_runs_kway_and_is_recorded(work):
     [
         (["--scale", "multi"], "--scale multi needs mode regions with method kway"),
         (["--scale", "multi", "--mode", "objects"], "got mode objects"),
-        (["--scale", "tiny"], "--scale must be one of single, multi"),
+        (["--scale", "tiny"], "--scale must be one of auto, single, multi"),
     ],
 )
 def test_scale_refusals_are_one_line_usage_errors(work, args, fragment):

@@ -238,3 +238,52 @@ def test_one_megapixel_known_regions():
     accuracy = table[r, c].sum() / (h * w)
     # measured 0.9964 (residual 1.3e-3 after 30 iterations); 0.896 with maxiter=10
     assert accuracy >= 0.99
+
+
+# --------------------------------------------------------------------------- relaxation
+
+
+def test_compatible_relaxation_keeps_block_means_and_lowers_the_fine_energy():
+    from imgcut.multiscale import _compatible_relaxation
+
+    img = _image(32, 40)
+    prob = multiscale_problem(img, levels=3)
+    grid = prob._levels[0].grid
+    rng = np.random.default_rng(1)
+    target = rng.standard_normal((grid.coarse[0] * grid.coarse[1], 3))
+    Y0 = grid.expand(target)
+    Y = _compatible_relaxation(prob, 0, Y0, target, steps=8)
+    # the constraint C y = target holds after every step (the coarse terms are unchanged)
+    np.testing.assert_allclose(grid.average(Y), target, atol=1e-12)
+    # and y^T L(W_0) y, the only part of the Rayleigh quotient left free, went down
+    W = prob.fine_graph.weights
+    L = sp.diags(np.asarray(W.sum(axis=1)).ravel()) - W
+    before = np.einsum("ij,ij->j", Y0, L @ Y0)
+    after = np.einsum("ij,ij->j", Y, L @ Y)
+    assert np.all(after < before)
+
+
+def test_relaxed_levels_reach_the_requested_residual():
+    img = _image(48, 40)
+    prob = multiscale_problem(img, levels=3)
+    A, B = _dense_pencil(prob)
+    ref = scipy.linalg.eigh(A, B, eigvals_only=True, subset_by_index=[0, 2])
+    ep = multiscale_eigenpairs(None, 3, problem=prob, tol=1e-6, maxiter=500, relax_levels=2)
+    assert ep.info["relaxed_levels"] == 2
+    assert ep.converged and np.all(ep.residuals <= 1e-6)
+    # eigenvalues of LAPACK's generalised eigh (scipy.linalg.eigh) on the explicit pencil
+    np.testing.assert_allclose(ep.values, ref, atol=1e-8)
+
+
+def test_relax_levels_auto_and_errors():
+    from imgcut.multiscale import RELAX_MIN_PIXELS, _relaxed_levels
+
+    side = int(np.sqrt(RELAX_MIN_PIXELS)) + 1
+    shapes = [(4 * side, 4 * side), (2 * side, 2 * side), (side, side), (side // 2, side // 2)]
+    assert _relaxed_levels(shapes, "auto") == 3
+    assert _relaxed_levels(shapes[2:], "auto") == 1
+    assert _relaxed_levels([(8, 8)], "auto") == 0  # the coarsest level is solved, never relaxed
+    assert _relaxed_levels(shapes, 9) == 3
+    for bad in (-1, 1.5, "all", True):
+        with pytest.raises(ValueError, match="relax_levels"):
+            _relaxed_levels(shapes, bad)

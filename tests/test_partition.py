@@ -210,6 +210,19 @@ def test_discretize_deterministic_and_seeded():
     assert np.array_equal(a, b) and np.array_equal(a, c)
 
 
+def test_discretize_on_a_row_sample_matches_the_full_fit(monkeypatch):
+    import sys
+
+    W, truth = block_graph((60, 50, 40), outer=0.3, seed=4)
+    lam, Y = eig_reference(W)
+    full = discretize(Y[:, :3], seed=2)
+    assert same_partition(full, truth)  # block truth by construction
+    monkeypatch.setattr(sys.modules["imgcut.partition"], "DISCRETIZE_SAMPLE", 40)
+    sampled = discretize(Y[:, :3], seed=2)
+    assert same_partition(sampled, truth)
+    assert np.array_equal(sampled, discretize(Y[:, :3], seed=2))  # seeded sample
+
+
 def test_kway_errors():
     Y = np.ones((5, 2))
     with pytest.raises(ValueError, match="valid values: discretize, kmeans"):

@@ -446,6 +446,13 @@ def test_choose_method_boundary_for_colour_recursive_otherwise():
         method, reason = choose(SegmentOptions(**graph_option), (30, 40, 3))
         assert method == "recursive" and next(iter(graph_option)) in reason
     assert choose(SegmentOptions(method="kway"), (30, 40, 3))[0] == "kway"
+    # large grey / microscopy images: k-way on the multiscale graph (scale auto)
+    big = (1024, 1024)
+    method, reason = choose(SegmentOptions(), big)
+    assert method == "kway" and "multiscale" in reason
+    assert choose(SegmentOptions(scale="single"), big)[0] == "recursive"
+    assert choose(SegmentOptions(n_regions=None), big)[0] == "recursive"  # automatic count
+    assert choose(SegmentOptions(), (1024, 1024, 3))[0] == "boundary"
     assert choose(SegmentOptions(method="boundary"), (30, 40))[0] == "boundary"
     assert choose(SegmentOptions(mode="objects"), (30, 40))[0] == "objects"
     with pytest.raises(ValueError, match="boundary"):

@@ -286,6 +286,34 @@ def test_multiscale_path_recovers_four_quadrants():
     assert table[rows, cols].sum() / truth.size >= 0.99
 
 
+def test_scale_auto_switches_on_pixel_count(monkeypatch):
+    """scale='auto': k-way cuts of images above AUTO_MULTISCALE_PIXELS take the multiscale
+    path with its own tolerance; recursive cuts, masks and small images stay single-scale."""
+    import sys
+    import warnings
+
+    mod = sys.modules["imgcut.segment"]
+    monkeypatch.setattr(mod, "AUTO_MULTISCALE_PIXELS", 1000)
+    img = np.zeros((40, 48))
+    img[:, 24:] = 1.0
+    img += 0.02 * np.random.default_rng(0).standard_normal(img.shape)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        big = segment(img, n_regions=2, method="kway", radius=3)
+        masked = segment(img, n_regions=2, method="kway", radius=3, mask=img > -1)
+    assert big.params["scale"] == "auto" and big.params["scale_used"] == "multi"
+    assert big.params["tol"] == mod.MULTISCALE_TOL and "multiscale" in big.params
+    assert masked.params["scale_used"] == "single" and masked.params["tol"] == 1e-5
+    rec = segment(img[:, 20:28], n_regions=2, radius=2)  # recursive: never multiscale
+    assert rec.params["scale_used"] == "single"
+    monkeypatch.setattr(mod, "AUTO_MULTISCALE_PIXELS", 10**9)
+    small = segment(img, n_regions=2, method="kway", radius=3)
+    assert small.params["scale_used"] == "single"
+    # the answer is the same two halves either way (ground truth by construction)
+    for res in (big, small):
+        assert (res.labels[:, :24] == 1).all() and (res.labels[:, 24:] == 2).all()
+
+
 def test_multiscale_path_rejects_recursive_and_mask():
     img = np.zeros((8, 8))
     with pytest.raises(ValueError, match="method='kway'"):

@@ -96,7 +96,8 @@ _SCALE_MEANING = {
     "single": "one pixel graph of the given --radius",
     "multi": "coarse-to-fine multiscale graph, less time and memory on large images "
     "(--method kway only)",
-    "auto": "chosen per image by the library",
+    "auto": "multi for k-way cuts of images over 400 000 pixels (method auto picks k-way "
+    "there for grey and microscopy images), else single",
 }
 _SCALE_HELP = (
     "Graph scale: "
@@ -447,9 +448,13 @@ def _segmentation_options(
         ),
     ] = DEFAULT_SCALE,
     tol: Annotated[
-        float,
-        typer.Option("--tol", rich_help_panel=PANEL_GRAPH, help="Eigenvector residual tolerance."),
-    ] = 1e-5,
+        float | None,
+        typer.Option(
+            "--tol",
+            rich_help_panel=PANEL_GRAPH,
+            help="Eigenvector residual tolerance [default: 1e-5 single-scale, 3e-2 multiscale].",
+        ),
+    ] = None,
     maxiter: Annotated[
         int | None,
         typer.Option("--maxiter", rich_help_panel=PANEL_GRAPH, help="Eigensolver iteration limit."),
