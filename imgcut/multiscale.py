@@ -43,6 +43,7 @@ import scipy.sparse as sp
 import scipy.sparse.csgraph as csgraph
 
 from imgcut._errors import EigenConvergenceWarning
+from imgcut._linalg import tall_matmul
 from imgcut.features import Features, compute_features
 from imgcut.graph import AffinityGraph, affinity_graph
 from imgcut.spectral import Eigenpairs, laplacian_eigenpairs
@@ -628,9 +629,9 @@ def _b_orthonormalize(X, BX):
         w, V = np.linalg.eigh(G)
         keep = w > w.max() * 1e-12
         T = V[:, keep] / np.sqrt(w[keep])
-        return X @ T, BX @ T
+        return tall_matmul(X, T), tall_matmul(BX, T)
     Ti = scipy.linalg.solve_triangular(Lc, np.eye(G.shape[0]), lower=True).T
-    return X @ Ti, BX @ Ti
+    return tall_matmul(X, Ti), tall_matmul(BX, Ti)
 
 
 class _VCycle:
@@ -681,6 +682,46 @@ class _VCycle:
         return e
 
 
+def _weighted_sq_norms(V: np.ndarray, w: np.ndarray, chunk: int = 1 << 18) -> np.ndarray:
+    """``sum_i w_i V_ij^2`` per column, a block of rows at a time (no n x m temporary)."""
+    out = np.zeros(V.shape[1])
+    for r0 in range(0, V.shape[0], chunk):
+        part = V[r0 : r0 + chunk]
+        out += w[r0 : r0 + chunk] @ (part * part)
+    return out
+
+
+def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int):
+    """Ritz pairs of the level-``s`` pencil in ``span(X)`` (constant deflated), lean on memory.
+
+    Returns (values, B-orthonormal vectors, relative residuals) like :func:`_refine` with
+    ``maxiter=0``, without its ``n x m`` temporaries: the k x k generalised problem is solved
+    by LAPACK and the residual norms by weighted sums.
+    """
+    n, m = X.shape
+    dB = prob.diagonal(s, mass=True)
+    one = np.ones((n, 1))
+    B1 = prob.apply(s, one, mass=True)[:, 0]
+    X = X - ((B1 @ X) / float(B1.sum()))[None, :]  # B-deflate the constant
+    BX = prob.apply(s, X, mass=True)
+    GB = X.T @ BX
+    AX = prob.apply(s, X)
+    GA = X.T @ AX
+    gw, gv = np.linalg.eigh((GB + GB.T) / 2)
+    keep = gw > 1e-12 * gw.max()
+    T = gv[:, keep] / np.sqrt(gw[keep])
+    lam, Zr = np.linalg.eigh(T.T @ ((GA + GA.T) / 2) @ T)
+    Z = T @ Zr
+    X, AX, BX = tall_matmul(X, Z), tall_matmul(AX, Z), tall_matmul(BX, Z)
+    BX *= lam[None, :]
+    AX -= BX  # in place: AX is now the residual block A X - B X diag(lam)
+    del BX
+    num = np.sqrt(_weighted_sq_norms(AX, 1.0 / dB))
+    den = np.sqrt(_weighted_sq_norms(X, dB))
+    res = num / den
+    return lam, X, res[:n_wanted]
+
+
 def _refine(
     prob: MultiscaleProblem,
     s: int,
@@ -717,7 +758,7 @@ def _refine(
     AX = A(X)
     H = X.T @ AX
     lam, Z = np.linalg.eigh((H + H.T) / 2)
-    X, AX, BX = X @ Z, AX @ Z, BX @ Z
+    X, AX, BX = tall_matmul(X, Z), tall_matmul(AX, Z), tall_matmul(BX, Z)
     P = AP = BP = None
     it = 0
     res = np.full(m, np.inf)
@@ -759,10 +800,10 @@ def _refine(
         sizes = [b.shape[1] for b in S]
         offs = np.cumsum([0] + sizes)
         Zs = [Z[offs[i] : offs[i + 1]] for i in range(len(S))]
-        P = sum(S[i] @ Zs[i] for i in range(1, len(S)))
-        AP = sum(AS[i] @ Zs[i] for i in range(1, len(S)))
-        BP = sum(BS[i] @ Zs[i] for i in range(1, len(S)))
-        X = X @ Zs[0] + P
+        P = sum(tall_matmul(S[i], Zs[i]) for i in range(1, len(S)))
+        AP = sum(tall_matmul(AS[i], Zs[i]) for i in range(1, len(S)))
+        BP = sum(tall_matmul(BS[i], Zs[i]) for i in range(1, len(S)))
+        X = tall_matmul(X, Zs[0]) + P
         if it % _RESYNC == 0:
             # Recompute the products and re-orthonormalise: the implicit updates drift and
             # LOBPCG stagnates when X loses B-orthonormality (Knyazev 2001, sec. 5).
@@ -771,10 +812,10 @@ def _refine(
             AX = A(X)
             H = X.T @ AX
             lam, Zh = np.linalg.eigh((H + H.T) / 2)
-            X, AX, BX = X @ Zh, AX @ Zh, BX @ Zh
+            X, AX, BX = tall_matmul(X, Zh), tall_matmul(AX, Zh), tall_matmul(BX, Zh)
         else:
-            AX = AX @ Zs[0] + AP
-            BX = BX @ Zs[0] + BP
+            AX = tall_matmul(AX, Zs[0]) + AP
+            BX = tall_matmul(BX, Zs[0]) + BP
         del S, AS, BS, Wt, AW, BW
     return lam, X, res, it
 
@@ -791,6 +832,7 @@ def _compatible_relaxation(
     steps, moving each transition onto the weakest links of the level's own short-radius graph
     -- the image edges. This is compatible relaxation (Brandt, "General highly accurate
     algebraic coarsening", ETNA 10, 2000; Livne, Numer. Linear Algebra Appl. 11, 2004).
+    ``Y`` (the prolonged block) is overwritten.
     """
     lev = prob._levels[s]
     G, grid = lev.G, lev.grid
@@ -804,7 +846,7 @@ def _compatible_relaxation(
     data = G.data * np.repeat(inv, counts)
     data[on_diag] = 0.0
     J = sp.csr_matrix((data, G.indices, G.indptr), shape=G.shape)
-    Y = np.array(Y, dtype=np.float64, order="C")  # a private copy: updated in place below
+    Y = np.ascontiguousarray(Y, dtype=np.float64)  # the caller's fresh block: updated in place
     for _ in range(steps):
         Y_new = J @ Y
         Y *= 1.0 - omega  # in place: full-size temporaries cost page faults at megapixels
@@ -995,9 +1037,18 @@ def multiscale_eigenpairs(
         Y = np.hstack([Y, rng.standard_normal((nS, m - Y.shape[1]))])
     n_relax = _relaxed_levels(problem.shapes, relax_levels)
     info["relaxed_levels"] = n_relax
-    t0 = time.perf_counter()
-    precond = _VCycle(problem, _PRECOND_SHIFT, rng) if preconditioner == "vcycle" else None
-    timings["precond_setup"] = time.perf_counter() - t0
+    timings["precond_setup"] = 0.0
+    vcycle: list = []  # built on first use: levels refined by relaxation alone never need it
+
+    def precond(level: int, r: np.ndarray) -> np.ndarray:
+        if not vcycle:
+            t_setup = time.perf_counter()
+            vcycle.append(_VCycle(problem, _PRECOND_SHIFT, rng))
+            timings["precond_setup"] += time.perf_counter() - t_setup
+        return vcycle[0](level, r)
+
+    if preconditioner != "vcycle":
+        precond = None  # noqa: F811 (l1-Jacobi inside _refine)
     t0 = time.perf_counter()
     iters = []
     level_res = []
@@ -1011,11 +1062,18 @@ def multiscale_eigenpairs(
             X = _compatible_relaxation(problem, s, X, target, relax_steps)
             if not final:
                 # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
-                lam, X, res, _ = _refine(problem, s, X, tol, 0, None, n_wanted=m)
+                lam, X, res = _rayleigh_ritz(problem, s, X, m)
                 iters.append(0)
                 level_res.append(float(res.max()) if res.size else 0.0)
                 continue
         it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
+        it = 0
+        if s < n_relax:  # final level after relaxation: LOBPCG only if the Ritz pairs miss tol
+            lam, X, res = _rayleigh_ritz(problem, s, X, m)
+            if np.all(res <= tol) or it_max == 0:
+                iters.append(0)
+                level_res.append(float(res.max()) if res.size else 0.0)
+                continue
         lam, X, res, it = _refine(problem, s, X, tol, it_max, precond, n_wanted=m)
         iters.append(it)
         level_res.append(float(res.max()) if res.size else 0.0)

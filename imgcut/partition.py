@@ -25,6 +25,8 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from imgcut._linalg import tall_matmul
+
 __all__ = [
     "sweep_cut",
     "SweepCut",
@@ -992,7 +994,8 @@ def discretize(
         n = Xt.shape[0]
     XtT = np.ascontiguousarray(Xt.T)
     for _ in range(max_iter):
-        labels = np.argmax(Xt @ R, axis=1)  # Yu & Shi 2003, eq. (12): nearest discrete X
+        # Yu & Shi 2003, eq. (12): the discrete X nearest to X~ R
+        labels = np.argmax(tall_matmul(Xt, R), axis=1)
         # X^T X~ (k, k): per-class column sums of X~
         M = np.stack([np.bincount(labels, weights=col, minlength=k) for col in XtT], axis=1)
         U, S, Vt = np.linalg.svd(M)  # Yu & Shi 2003, Fig. 2 step 5
@@ -1003,7 +1006,7 @@ def discretize(
         best_R = R
         R = Vt.T @ U.T  # R = U~ U^T (orthogonal Procrustes)
     if full is not Xt:
-        best_labels = np.argmax(full @ best_R, axis=1)
+        best_labels = np.argmax(tall_matmul(full, best_R), axis=1)
     return _first_occurrence_labels(best_labels)
 
 
