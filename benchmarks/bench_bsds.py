@@ -281,6 +281,11 @@ def main(argv=None):
     ap.add_argument("--step", type=int, default=1, help="take every STEP-th image")
     ap.add_argument("--jobs", type=int, default=1)
     ap.add_argument("--preset", default="photo")
+    ap.add_argument(
+        "--preset-overrides",
+        default="{}",
+        help="JSON dict of preset fields to override, e.g. '{\"similarity_weight\": 0.05}'",
+    )
     ap.add_argument("--exact-levels", type=int, default=1)
     ap.add_argument("--cache", default=None, help="folder for per-image results (resumable)")
     ap.add_argument("--gallery", type=int, default=0, help="number of gallery images")
@@ -303,7 +308,7 @@ def main(argv=None):
         raise SystemExit(f"--methods must be a subset of {METHODS}; got {args.methods!r}")
     if not DATA.is_dir():
         raise SystemExit(f"BSDS500 not found at {DATA}")
-    preset = get_preset(args.preset)
+    preset = get_preset(args.preset, **json.loads(args.preset_overrides))
     ids = sorted(p.stem for p in (DATA / args.split / "images").glob("*.jpg"))[:: args.step]
     ids = ids[: args.limit] if args.limit else ids
     out_dir = Path(args.out)

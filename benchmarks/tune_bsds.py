@@ -31,7 +31,7 @@ from PIL import Image
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
-from imgcut.cues import combine_cues, local_cues
+from imgcut.cues import combine_cues, local_cues, quantised_channels
 from imgcut.hierarchy import merge_regions, oversegment
 from imgcut.presets import get_preset
 from imgcut.spectral_boundary import _contrast_normalise
@@ -62,10 +62,12 @@ def _cues(image_id: str, cache: Path):
             tensors=c.tensors.astype(np.float16),
             names=np.array(c.names),
             segs=np.stack([g["Segmentation"].astype(np.int16) for g in gt]),
+            textons=c.texton_labels.astype(np.uint8),
         )
         tmp.rename(path)
     z = np.load(path)
-    return z["tensors"], tuple(str(n) for n in z["names"]), z["segs"].astype(np.int64)
+    tex = z["textons"] if "textons" in z.files else None
+    return z["tensors"], tuple(str(n) for n in z["names"]), z["segs"].astype(np.int64), tex
 
 
 def _combine(tensors, names, preset):
@@ -135,9 +137,17 @@ def evaluate(ids, preset, cache: Path, levels) -> dict:
     """ODS/OIS region scores of one preset over train images (one hierarchy per image)."""
     rows = []
     for image_id in ids:
-        tensors, names, segs = _cues(image_id, cache)
+        tensors, names, segs, tex = _cues(image_id, cache)
         local, strength = _contrast_normalise(_combine(tensors, names, preset), preset)
         base = oversegment(strength, smooth=preset.watershed_smooth)
+        features = None
+        if preset.similarity_weight > 0:
+            if tex is None:
+                raise SystemExit("the cue cache predates texton maps; rebuild it")
+            img = np.asarray(Image.open(DATA / "train" / "images" / f"{image_id}.jpg"))
+            features = quantised_channels(
+                img, tex, colour_space=preset.colour_space, n_bins=preset.similarity_bins
+            )
         h = merge_regions(
             base,
             strength,
@@ -146,6 +156,9 @@ def evaluate(ids, preset, cache: Path, levels) -> dict:
             size_scale=preset.size_scale,
             size_power=preset.size_power,
             strength_power=preset.strength_power,
+            features=features,
+            similarity_weight=preset.similarity_weight,
+            similarity_mix=preset.similarity_mix,
         )
         rows.append(_sweep_scores(h, _tables(h.base_labels, segs), levels))
     r = np.array(rows)  # (images, levels, 4)
@@ -168,13 +181,14 @@ def main(argv=None):
     ap.add_argument("--preset", default="photo")
     ap.add_argument("--configs", default="[{}]", help="JSON list of preset-field overrides")
     ap.add_argument("--subset", type=int, default=0, help="fixed random subset size (0: all)")
+    ap.add_argument("--level-min", type=float, default=0.2, help="lowest level of the sweep")
     args = ap.parse_args(argv)
     cache = Path(args.cache)
     cache.mkdir(parents=True, exist_ok=True)
     ids = sorted(p.stem for p in (DATA / "train" / "images").glob("*.jpg"))
     if args.subset:  # the fixed subset of docs/benchmarks.md
         ids = sorted(np.random.default_rng(12345).choice(ids, args.subset, replace=False))
-    levels = np.round(np.arange(0.2, 1.0001, 0.025), 3)
+    levels = np.round(np.arange(args.level_min, 1.0001, 0.025), 3)
     for overrides in json.loads(args.configs):
         t0 = time.perf_counter()
         s = evaluate(ids, get_preset(args.preset, **overrides), cache, levels)

@@ -62,6 +62,13 @@ class BoundaryPreset:
         Exponent γ of the region-size term.
     strength_power : float
         Exponent ``p`` of the power mean of the border strength (1: plain mean).
+    similarity_weight : float
+        Weight ``w`` of the region-appearance term of the merge score (0: off;
+        :func:`imgcut.hierarchy.merge_regions`).
+    similarity_mix : {"product", "sum"}
+        How the appearance distance enters the merge score (geometric or arithmetic mix).
+    similarity_bins : int
+        Bins per colour channel of the region histograms (textons add one channel).
     oriented : bool
         Measure each border across its own orientation (oriented watershed arcs).
     default_level : float
@@ -97,6 +104,9 @@ class BoundaryPreset:
     size_scale: float = 0.0
     size_power: float = 0.5
     strength_power: float = 1.0
+    similarity_weight: float = 0.0
+    similarity_mix: str = "product"
+    similarity_bins: int = 8
     oriented: bool = True
     default_level: float = 0.65
     level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(6, 19))

@@ -233,6 +233,9 @@ class GlobalBoundary:
         The spectral term (None when the preset's ``spectral_weight`` is 0).
     timings : dict
         Seconds per stage (``cues``, ``spectral``).
+    texton_labels : ndarray, shape (H, W), int32, optional
+        Texton index of every pixel (:attr:`imgcut.cues.CueTensors.texton_labels`), for region
+        histograms in the hierarchy.
     """
 
     tensor: np.ndarray
@@ -240,6 +243,7 @@ class GlobalBoundary:
     local_strength: np.ndarray
     spectral: SpectralBoundary | None
     timings: dict
+    texton_labels: np.ndarray | None = None
 
 
 def global_boundary(
@@ -327,4 +331,5 @@ def global_boundary(
         local_strength=local_strength,
         spectral=spec,
         timings={"cues": t1 - t0, "spectral": t2 - t1},
+        texton_labels=cues.texton_labels,
     )

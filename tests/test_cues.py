@@ -158,3 +158,24 @@ def test_bad_options_raise():
         cues.local_cues(img, brightness_sigmas=(), colour_sigmas=(), texture_sigmas=())
     with pytest.raises(ValueError, match="sigma"):
         cues.histogram_gradient_tensor(np.ones((4, 4, 2)), 0.0)
+
+
+def test_quantised_channels_bin_lab_values_of_scikit_image():
+    # Bins of L, a, b over the module's fixed Lab ranges, computed here from scikit-image's
+    # rgb2lab (the reference conversion), plus the texton map as the last channel.
+    from skimage.color import rgb2lab
+
+    rng = np.random.default_rng(7)
+    img = rng.random((12, 14, 3))
+    tex = rng.integers(0, 5, (12, 14))
+    q = cues.quantised_channels(img, tex, n_bins=8)
+    assert q.shape == (4, 12, 14) and q.dtype == np.int32
+    lab = rgb2lab(img)
+    for c, (lo, hi) in enumerate(((0.0, 100.0), (-40.0, 60.0), (-40.0, 85.0))):
+        t = np.clip((lab[..., c] - lo) / (hi - lo), 0, 1)
+        np.testing.assert_array_equal(q[c], np.minimum(np.floor(t * 8), 7))
+    np.testing.assert_array_equal(q[3], tex)
+    with pytest.raises(ValueError, match="texton_labels"):
+        cues.quantised_channels(img, tex[:-1])
+    with pytest.raises(ValueError, match="n_bins"):
+        cues.quantised_channels(img, n_bins=1)

@@ -208,3 +208,60 @@ def test_merge_options_are_validated():
     ):
         with pytest.raises(ValueError, match=msg):
             hierarchy.merge_regions(lab, b, **kw)
+
+
+def test_appearance_term_merges_alike_regions_before_a_weaker_border():
+    # Strips 1 | 2 | 3 with borders 0.5 (1|2) and 0.4 (2|3); strips 1 and 2 share one colour
+    # bin, strip 3 another.  Border strength alone merges 2|3 first.  With the appearance term
+    # the chi-squared distance (Martin, Fowlkes & Malik 2004: ½ Σ (g−h)²/(g+h)) is 0 for the
+    # alike pair and 1 for disjoint one-bin histograms, so the "sum" keys are
+    # 0.5·0.5 + 0.5·0 = 0.25 and 0.5·0.4 + 0.5·1 = 0.7 (closed form of the Notes' score).
+    lab = np.repeat(np.array([[1, 2, 3]]), 6, axis=0).repeat(4, axis=1)
+    b = np.zeros(lab.shape)
+    b[:, 3:5] = 0.5
+    b[:, 7:9] = 0.4
+    feat = (lab == 3).astype(np.int64)[None]
+    plain = hierarchy.merge_regions(lab, b, features=feat)  # weight 0: border only
+    assert plain.merge_levels.tolist() == pytest.approx([0.4, 0.5])
+    h = hierarchy.merge_regions(lab, b, features=feat, similarity_weight=0.5, similarity_mix="sum")
+    assert h.merge_levels[0] == pytest.approx(0.25)
+    assert h.n_regions_at(0.3) == 2 and h.labels_at(0.3)[0, 0] == h.labels_at(0.3)[0, 5]
+    # after the merge, region {1,2} still has histogram (1, 0) against (0, 1): key 0.7
+    assert h.merge_levels[1] == pytest.approx(0.7)
+    # geometric mix: 0.5^(1/2) · 0^(1/2) = 0 for the alike pair
+    g = hierarchy.merge_regions(lab, b, features=feat, similarity_weight=0.5)
+    assert g.merge_levels[0] == pytest.approx(0.0)
+    assert g.merge_levels[1] == pytest.approx(np.sqrt(0.4 * 1.0))
+
+
+def test_region_chi2_matches_its_definition():
+    # Mean over channels of ½ Σ (g−h)²/(g+h) of normalised histograms (Martin et al. 2004),
+    # written out with np.histogram on two random regions with two channels.
+    rng = np.random.default_rng(5)
+    base = np.ones((10, 12), np.int32)
+    base[:, 6:] = 2
+    feat = np.stack([rng.integers(0, 4, base.shape), rng.integers(0, 3, base.shape)])
+    hist, c = hierarchy._region_histograms(base, feat)
+    area = np.bincount(base.ravel() - 1).astype(float)
+    got = hierarchy._chi2_rows(hist[0], area[0], hist[[1]], area[[1]], c)[0]
+    ref = 0.0
+    for ch, nb in zip(feat, (4, 3), strict=True):
+        g = np.histogram(ch[base == 1], bins=np.arange(nb + 1))[0] / 60.0
+        h = np.histogram(ch[base == 2], bins=np.arange(nb + 1))[0] / 60.0
+        s = g + h
+        ref += 0.5 * np.sum(np.where(s > 0, (g - h) ** 2 / np.where(s > 0, s, 1), 0.0)) / 2
+    assert got == pytest.approx(ref, rel=1e-12)
+
+
+def test_appearance_options_are_validated():
+    lab, b = _three_strips()
+    with pytest.raises(ValueError, match="similarity_weight"):
+        hierarchy.merge_regions(lab, b, similarity_weight=1.5)
+    with pytest.raises(ValueError, match="similarity_mix"):
+        hierarchy.merge_regions(lab, b, similarity_mix="max")
+    with pytest.raises(ValueError, match="features"):
+        hierarchy.merge_regions(lab, b, features=np.zeros((1, 2, 2), int), similarity_weight=0.2)
+    with pytest.raises(ValueError, match="features"):
+        hierarchy.merge_regions(
+            lab, b, features=-np.ones((1,) + lab.shape, int), similarity_weight=0.2
+        )
