@@ -46,7 +46,7 @@ from imgcut._errors import EigenConvergenceWarning
 from imgcut._linalg import tall_matmul
 from imgcut.features import Features, compute_features
 from imgcut.graph import AffinityGraph, affinity_graph
-from imgcut.spectral import Eigenpairs, laplacian_eigenpairs
+from imgcut.spectral import FLOAT32_MIN_TOL, Eigenpairs, laplacian_eigenpairs
 
 __all__ = [
     "AUTO_MULTISCALE_PIXELS",
@@ -57,6 +57,7 @@ __all__ = [
     "multiscale_problem",
     "prolongation",
     "restriction",
+    "RELAX_MIN_PIXELS",
 ]
 
 #: ``segment(scale="auto")`` switches to the multiscale path above this many pixels
@@ -302,7 +303,7 @@ def coarsen_features(features: Features) -> Features:
     )
 
 
-def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 20) -> sp.csr_matrix:
+def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 22) -> sp.csr_matrix:
     """Aggregate a pixel graph onto 2x2 blocks: ``P^T W P``.
 
     Parameters
@@ -311,7 +312,7 @@ def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 20) -> sp.csr_matrix:
         Affinity graph on the pixels of ``shape`` (raster order, no mask).
     shape : tuple of int
         Grid ``(H, W)``.
-    chunk_rows : int, default 2**20
+    chunk_rows : int, default 2**22
         Rows aggregated at a time (bounds the temporary memory).
 
     Returns
@@ -343,15 +344,20 @@ def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 20) -> sp.csr_matrix:
     if W.shape != (h * w, h * w):
         raise ValueError(f"W must be ({h * w}, {h * w}) for a grid of shape {shape}; got {W.shape}")
     P = prolongation((h, w), 2)
-    nc = P.shape[1]
-    out = sp.csr_matrix((nc, nc))
-    for r0 in range(0, h * w, chunk_rows):
-        r1 = min(h * w, r0 + chunk_rows)
-        part = P[r0:r1].T @ (W[r0:r1] @ P)
-        out = out + part
+    wc = (w + 1) // 2
+    # Chunks of an even number of image rows: every block row then lies in one chunk, so
+    # each chunk gives complete, disjoint rows of the result and the parts are stacked
+    # (adding full-size partial sums instead made the cost grow with chunks x size).
+    step = max(2, (chunk_rows // w) // 2 * 2)
+    parts = []
+    for y0 in range(0, h, step):
+        y1 = min(h, y0 + step)
+        part = P[y0 * w : y1 * w].T @ (W[y0 * w : y1 * w] @ P)
+        parts.append(sp.csr_matrix(part)[(y0 // 2) * wc : ((y1 + 1) // 2) * wc])
+    out = sp.csr_matrix(sp.vstack(parts, format="csr"))
     out.sum_duplicates()
     out.sort_indices()
-    return sp.csr_matrix(out)
+    return out
 
 
 # --------------------------------------------------------------------------- the problem
@@ -421,11 +427,15 @@ class MultiscaleProblem:
         """
         a, b = (0.0, 1.0) if mass else (1.0, float(shift))
         lev = self._levels[s]
-        out = ((a + b) * self._deg[s])[:, None] * x
-        if a:
-            out -= a * (lev.G @ x)
+        if a:  # one full-size temporary: (a + b) D x - a G x, built in place
+            out = lev.G @ x
+            out *= -a
+            out += ((a + b) * self._deg[s])[:, None] * x
+        else:
+            out = (b * self._deg[s])[:, None] * x
         if lev.grid is not None:
-            out += lev.grid.average_t(self._coarse_apply(s + 1, lev.grid.average(x), a, b))
+            coarse = self._coarse_apply(s + 1, lev.grid.average(x), a, b)
+            lev.grid.add_expanded(out, coarse / lev.grid.counts[:, None])  # += C^T coarse
         return out
 
     def _coarse_diag(self, s: int, mass: bool) -> np.ndarray:
@@ -712,7 +722,9 @@ def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int
     T = gv[:, keep] / np.sqrt(gw[keep])
     lam, Zr = np.linalg.eigh(T.T @ ((GA + GA.T) / 2) @ T)
     Z = T @ Zr
-    X, AX, BX = tall_matmul(X, Z), tall_matmul(AX, Z), tall_matmul(BX, Z)
+    X = tall_matmul(X, Z)  # one at a time: each old block is freed before the next
+    AX = tall_matmul(AX, Z)
+    BX = tall_matmul(BX, Z)
     BX *= lam[None, :]
     AX -= BX  # in place: AX is now the residual block A X - B X diag(lam)
     del BX
@@ -821,7 +833,12 @@ def _refine(
 
 
 def _compatible_relaxation(
-    prob: MultiscaleProblem, s: int, Y: np.ndarray, target: np.ndarray, steps: int
+    prob: MultiscaleProblem,
+    s: int,
+    Y: np.ndarray,
+    target: np.ndarray,
+    steps: int,
+    dtype: type = np.float64,
 ) -> np.ndarray:
     """Place the prolonged vectors' transitions inside the blocks of level ``s``.
 
@@ -832,7 +849,8 @@ def _compatible_relaxation(
     steps, moving each transition onto the weakest links of the level's own short-radius graph
     -- the image edges. This is compatible relaxation (Brandt, "General highly accurate
     algebraic coarsening", ETNA 10, 2000; Livne, Numer. Linear Algebra Appl. 11, 2004).
-    ``Y`` (the prolonged block) is overwritten.
+    ``Y`` (the prolonged block) is overwritten. With ``dtype=np.float32`` the steps run in
+    single precision (half the memory traffic); the Rayleigh-Ritz step that follows is float64.
     """
     lev = prob._levels[s]
     G, grid = lev.G, lev.grid
@@ -840,20 +858,24 @@ def _compatible_relaxation(
     # J = w (D - diag G)^-1 (G - diag G): one scaled copy of G's values per level.
     n = G.shape[0]
     counts = np.diff(G.indptr)
-    rows = np.repeat(np.arange(n, dtype=G.indices.dtype), counts)
-    on_diag = G.indices == rows
-    inv = omega / np.maximum(prob._deg[s] - G.diagonal(), 1e-300)
+    diag = G.diagonal()
+    inv = omega / np.maximum(prob._deg[s] - diag, 1e-300)
     data = G.data * np.repeat(inv, counts)
-    data[on_diag] = 0.0
-    J = sp.csr_matrix((data, G.indices, G.indptr), shape=G.shape)
-    Y = np.ascontiguousarray(Y, dtype=np.float64)  # the caller's fresh block: updated in place
+    if np.any(diag):  # self-loops (Galerkin levels): drop them from J
+        rows = np.repeat(np.arange(n, dtype=G.indices.dtype), counts)
+        data[G.indices == rows] = 0.0
+        del rows
+    J = sp.csr_matrix((data.astype(dtype, copy=False), G.indices, G.indptr), shape=G.shape)
+    del data
+    Y = np.ascontiguousarray(Y, dtype=dtype)  # the caller's fresh block: updated in place
+    target = target.astype(dtype, copy=False)
     for _ in range(steps):
         Y_new = J @ Y
         Y *= 1.0 - omega  # in place: full-size temporaries cost page faults at megapixels
         Y_new += Y
         Y = Y_new
         grid.add_expanded(Y, target - grid.average(Y))
-    return Y
+    return Y.astype(np.float64, copy=False)
 
 
 def _relaxed_levels(shapes: list, relax_levels: int | str) -> int:
@@ -888,7 +910,8 @@ def multiscale_eigenpairs(
     sigma_edge: float | None = None,
     tol: float = 1e-5,
     maxiter: int | None = None,
-    level_maxiter: int = 6,
+    level_maxiter: int = 10,
+    level_tol: float = 1e-4,
     seed=None,
     coarsest_pixels: int = _COARSEST_PIXELS,
     preconditioner: str = "vcycle",
@@ -910,8 +933,13 @@ def multiscale_eigenpairs(
         Residual tolerance on the full-resolution pencil (see Returns).
     maxiter : int, optional
         LOBPCG iterations allowed on the full-resolution level (default 60).
-    level_maxiter : int, default 6
-        LOBPCG iterations on each intermediate level (they only improve the start).
+    level_maxiter : int, default 10
+        LOBPCG iterations on each intermediate level refined by LOBPCG (they improve the
+        start of the finer levels; see ``relax_levels``).
+    level_tol : float, default 1e-4
+        Residual at which an intermediate level stops early (``min(tol, level_tol)``). The
+        coarse levels decide the regions, so they are converged harder than the
+        full-resolution tolerance of the segmentation path asks (docs/multiscale.md).
     seed : None, int or numpy.random.Generator
         Seeds the coarsest eigensolve and the multigrid setup.
     preconditioner : {"vcycle", "jacobi"}, default "vcycle"
@@ -920,6 +948,14 @@ def multiscale_eigenpairs(
     problem : MultiscaleProblem, optional
         A prebuilt problem from :func:`multiscale_problem`; ``image`` is then ignored
         (pass None).
+    relax_levels : int or "auto", default "auto"
+        Number of finest levels refined by compatible relaxation (``relax_steps`` damped
+        Jacobi steps with the block means held, then one Rayleigh-Ritz step) instead of
+        LOBPCG. "auto": every level with more than ``RELAX_MIN_PIXELS`` (100 000) pixels.
+        On the full-resolution level LOBPCG still follows when the Ritz residuals miss
+        ``tol`` and ``maxiter > 0``.
+    relax_steps : int, default 8
+        Jacobi steps per relaxed level.
 
     Returns
     -------
@@ -983,6 +1019,11 @@ def multiscale_eigenpairs(
         isinstance(maxiter, bool) or not isinstance(maxiter, int | np.integer) or maxiter < 0
     ):
         raise ValueError(f"maxiter must be None or a positive integer; got {maxiter!r}")
+    for name, v in (("level_maxiter", level_maxiter), ("relax_steps", relax_steps)):
+        if isinstance(v, bool) or not isinstance(v, int | np.integer) or v < 0:
+            raise ValueError(f"{name} must be an integer >= 0; got {v!r}")
+    if not (isinstance(level_tol, int | float | np.floating) and level_tol > 0):
+        raise ValueError(f"level_tol must be a positive number; got {level_tol!r}")
     if preconditioner not in _PRECONDITIONERS:
         raise ValueError(
             f"unknown preconditioner {preconditioner!r}; valid: {', '.join(_PRECONDITIONERS)}"
@@ -1036,6 +1077,8 @@ def multiscale_eigenpairs(
     if Y.shape[1] < m:  # coarse grid smaller than k: fill with random columns
         Y = np.hstack([Y, rng.standard_normal((nS, m - Y.shape[1]))])
     n_relax = _relaxed_levels(problem.shapes, relax_levels)
+    # Single-precision relaxation under the same rule as the Lanczos products (spectral.py).
+    relax_dtype = np.float32 if tol >= FLOAT32_MIN_TOL else np.float64
     info["relaxed_levels"] = n_relax
     timings["precond_setup"] = 0.0
     vcycle: list = []  # built on first use: levels refined by relaxation alone never need it
@@ -1059,7 +1102,7 @@ def multiscale_eigenpairs(
         X = problem._levels[s].grid.expand(X)
         final = s == 0
         if s < n_relax:
-            X = _compatible_relaxation(problem, s, X, target, relax_steps)
+            X = _compatible_relaxation(problem, s, X, target, relax_steps, relax_dtype)
             if not final:
                 # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
                 lam, X, res = _rayleigh_ritz(problem, s, X, m)
@@ -1074,7 +1117,8 @@ def multiscale_eigenpairs(
                 iters.append(0)
                 level_res.append(float(res.max()) if res.size else 0.0)
                 continue
-        lam, X, res, it = _refine(problem, s, X, tol, it_max, precond, n_wanted=m)
+        level_tol_s = tol if final else min(tol, level_tol)
+        lam, X, res, it = _refine(problem, s, X, level_tol_s, it_max, precond, n_wanted=m)
         iters.append(it)
         level_res.append(float(res.max()) if res.size else 0.0)
     timings["refine"] = time.perf_counter() - t0

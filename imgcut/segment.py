@@ -38,12 +38,14 @@ RECURSIVE_EIGENVECTORS = 3
 SCALES = ("auto", "single", "multi")
 #: Default ``tol`` of the single-scale path.
 SINGLE_SCALE_TOL = 1e-5
-#: Default ``tol`` of the multiscale path: the residual its coarse-to-fine refinement
-#: (compatible relaxation and a Rayleigh-Ritz step at full resolution) reaches on BSDS500 and
-#: synthetic micrographs (docs/multiscale.md); full-resolution LOBPCG runs only above it.
+#: Default ``tol`` of the multiscale path: above the full-resolution residual its coarse-to-fine
+#: refinement (LOBPCG on the levels up to 100 000 pixels, compatible relaxation and one
+#: Rayleigh-Ritz step above) leaves on BSDS500 photographs and synthetic micrographs
+#: (docs/multiscale.md), so the default run does not warn.
 MULTISCALE_TOL = 3e-2
-#: Default cap of the full-resolution LOBPCG iterations on the multiscale path.
-MULTISCALE_MAXITER = 10
+#: Default full-resolution LOBPCG iterations on the multiscale path: none (relaxation and
+#: Rayleigh-Ritz only); the regions are decided on the coarse levels (docs/multiscale.md).
+MULTISCALE_MAXITER = 0
 #: Radius of the full-resolution graph on the multiscale path (8 neighbours).
 MULTISCALE_RADIUS_FINE = 1.5
 

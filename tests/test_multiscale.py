@@ -243,7 +243,8 @@ def test_one_megapixel_known_regions():
 # --------------------------------------------------------------------------- relaxation
 
 
-def test_compatible_relaxation_keeps_block_means_and_lowers_the_fine_energy():
+@pytest.mark.parametrize("dtype, atol", [(np.float64, 1e-12), (np.float32, 1e-5)])
+def test_compatible_relaxation_keeps_block_means_and_lowers_the_fine_energy(dtype, atol):
     from imgcut.multiscale import _compatible_relaxation
 
     img = _image(32, 40)
@@ -252,9 +253,10 @@ def test_compatible_relaxation_keeps_block_means_and_lowers_the_fine_energy():
     rng = np.random.default_rng(1)
     target = rng.standard_normal((grid.coarse[0] * grid.coarse[1], 3))
     Y0 = grid.expand(target)
-    Y = _compatible_relaxation(prob, 0, Y0.copy(), target, steps=8)
+    Y = _compatible_relaxation(prob, 0, Y0.copy(), target, steps=8, dtype=dtype)
+    assert Y.dtype == np.float64
     # the constraint C y = target holds after every step (the coarse terms are unchanged)
-    np.testing.assert_allclose(grid.average(Y), target, atol=1e-12)
+    np.testing.assert_allclose(grid.average(Y), target, atol=atol)
     # and y^T L(W_0) y, the only part of the Rayleigh quotient left free, went down
     W = prob.fine_graph.weights
     L = sp.diags(np.asarray(W.sum(axis=1)).ravel()) - W
