@@ -75,9 +75,12 @@ def test_merge_fields_reach_the_hierarchy():
     img[:, 20:] += 0.5
     p = presets.get_preset("photo")
     assert p.size_scale > 0 and p.strength_power != 1.0  # the fitted merge score is on
-    h = hierarchy.image_hierarchy(np.clip(img / 1.5, 0, 1), preset=p, seed=0)
-    gb = global_boundary(np.clip(img / 1.5, 0, 1), preset=p, seed=0)
+    assert p.similarity_weight > 0  # and the region-appearance term
+    img = np.clip(img / 1.5, 0, 1)
+    h = hierarchy.image_hierarchy(img, preset=p, seed=0)
+    gb = global_boundary(img, preset=p, seed=0)
     base = hierarchy.oversegment(gb.strength, smooth=p.watershed_smooth)
+    feats = cues.quantised_channels(img, gb.texton_labels, n_bins=p.similarity_bins)
     direct = hierarchy.merge_regions(
         base,
         gb.strength,
@@ -86,6 +89,9 @@ def test_merge_fields_reach_the_hierarchy():
         size_scale=p.size_scale,
         size_power=p.size_power,
         strength_power=p.strength_power,
+        features=feats,
+        similarity_weight=p.similarity_weight,
+        similarity_mix=p.similarity_mix,
     )
     np.testing.assert_array_equal(h.edge_levels, direct.edge_levels)
     plain = hierarchy.merge_regions(base, gb.strength, tensor=gb.tensor)
@@ -95,3 +101,4 @@ def test_merge_fields_reach_the_hierarchy():
 def test_fluorescence_keeps_the_plain_mean_merge():
     p = presets.PRESETS["fluorescence"]
     assert (p.size_scale, p.strength_power, p.min_area, p.contrast_power) == (0.0, 1.0, 0, 0.0)
+    assert p.similarity_weight == 0.0  # no region-appearance term (not tuned on microscopy)
