@@ -17,7 +17,9 @@ __all__ = ["tall_matmul"]
 ROW_BLOCK = 1 << 14
 
 
-def tall_matmul(X: np.ndarray, Z: np.ndarray, *, block: int = ROW_BLOCK) -> np.ndarray:
+def tall_matmul(
+    X: np.ndarray, Z: np.ndarray, *, block: int = ROW_BLOCK, out: np.ndarray | None = None
+) -> np.ndarray:
     """``X @ Z`` for a tall ``X``, computed in row blocks.
 
     Parameters
@@ -28,6 +30,10 @@ def tall_matmul(X: np.ndarray, Z: np.ndarray, *, block: int = ROW_BLOCK) -> np.n
         Small matrix.
     block : int, default ROW_BLOCK
         Rows per BLAS call.
+    out : ndarray, shape (n, p), optional
+        Where to write the product; may be ``X`` itself (``Z`` square): row ``i`` of the
+        product depends on row ``i`` of ``X`` only, so the rows are replaced block by block
+        and no second ``n x p`` array is made.
 
     Returns
     -------
@@ -41,13 +47,19 @@ def tall_matmul(X: np.ndarray, Z: np.ndarray, *, block: int = ROW_BLOCK) -> np.n
     >>> Z = np.array([[1.0, 0.0], [1.0, 2.0]])
     >>> bool(np.array_equal(tall_matmul(X, Z, block=4), X @ Z))
     True
+    >>> Y = X.copy()
+    >>> bool(np.array_equal(tall_matmul(Y, Z, block=4, out=Y), X @ Z))
+    True
     """
     X = np.asarray(X)
     Z = np.asarray(Z)
     n = X.shape[0]
-    if n <= block:
-        return X @ Z
-    out = np.empty((n, Z.shape[1]), dtype=np.result_type(X, Z))
+    if out is None:
+        if n <= block:
+            return X @ Z
+        out = np.empty((n, Z.shape[1]), dtype=np.result_type(X, Z))
+    elif out.shape != (n, Z.shape[1]):
+        raise ValueError(f"out must have shape {(n, Z.shape[1])}, got {out.shape}")
     for r0 in range(0, n, block):
-        np.matmul(X[r0 : r0 + block], Z, out=out[r0 : r0 + block])
+        out[r0 : r0 + block] = X[r0 : r0 + block] @ Z  # a block-sized temporary at most
     return out

@@ -427,10 +427,13 @@ class MultiscaleProblem:
         """
         a, b = (0.0, 1.0) if mass else (1.0, float(shift))
         lev = self._levels[s]
-        if a:  # one full-size temporary: (a + b) D x - a G x, built in place
+        if a:  # (a + b) D x - a G x, built in place a block of rows at a time
             out = lev.G @ x
             out *= -a
-            out += ((a + b) * self._deg[s])[:, None] * x
+            d = (a + b) * self._deg[s]
+            for r0 in range(0, out.shape[0], 1 << 16):
+                r1 = r0 + (1 << 16)
+                out[r0:r1] += d[r0:r1, None] * x[r0:r1]
         else:
             out = (b * self._deg[s])[:, None] * x
         if lev.grid is not None:
@@ -706,15 +709,18 @@ def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int
 
     Returns (values, B-orthonormal vectors, relative residuals) like :func:`_refine` with
     ``maxiter=0``, without its ``n x m`` temporaries: the k x k generalised problem is solved
-    by LAPACK and the residual norms by weighted sums.
+    by LAPACK and the residual norms by weighted sums. ``X`` is overwritten.
     """
     n, m = X.shape
     dB = prob.diagonal(s, mass=True)
     one = np.ones((n, 1))
     B1 = prob.apply(s, one, mass=True)[:, 0]
-    X = X - ((B1 @ X) / float(B1.sum()))[None, :]  # B-deflate the constant
+    X -= ((B1 @ X) / float(B1.sum()))[None, :]  # B-deflate the constant (in place)
+    # At most three n x m blocks alive: B X is used for its Gram matrix, dropped, and
+    # recomputed for the Ritz vectors (one more B product instead of a fourth block).
     BX = prob.apply(s, X, mass=True)
     GB = X.T @ BX
+    del BX
     AX = prob.apply(s, X)
     GA = X.T @ AX
     gw, gv = np.linalg.eigh((GB + GB.T) / 2)
@@ -722,13 +728,18 @@ def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int
     T = gv[:, keep] / np.sqrt(gw[keep])
     lam, Zr = np.linalg.eigh(T.T @ ((GA + GA.T) / 2) @ T)
     Z = T @ Zr
-    X = tall_matmul(X, Z)  # one at a time: each old block is freed before the next
-    AX = tall_matmul(AX, Z)
-    BX = tall_matmul(BX, Z)
+    if Z.shape[1] == m:  # Ritz vectors in place (X is the caller's fresh block)
+        tall_matmul(X, Z, out=X)
+        tall_matmul(AX, Z, out=AX)
+    else:  # a dependent direction was dropped: fewer columns
+        X = tall_matmul(X, Z)
+        AX = tall_matmul(AX, Z)
+    BX = prob.apply(s, X, mass=True)
     BX *= lam[None, :]
     AX -= BX  # in place: AX is now the residual block A X - B X diag(lam)
     del BX
-    num = np.sqrt(_weighted_sq_norms(AX, 1.0 / dB))
+    inv_dB = np.divide(1.0, dB, out=np.zeros_like(dB), where=dB > 0)
+    num = np.sqrt(_weighted_sq_norms(AX, inv_dB))
     den = np.sqrt(_weighted_sq_norms(X, dB))
     res = num / den
     return lam, X, res[:n_wanted]
@@ -835,7 +846,6 @@ def _refine(
 def _compatible_relaxation(
     prob: MultiscaleProblem,
     s: int,
-    Y: np.ndarray,
     target: np.ndarray,
     steps: int,
     dtype: type = np.float64,
@@ -849,26 +859,34 @@ def _compatible_relaxation(
     steps, moving each transition onto the weakest links of the level's own short-radius graph
     -- the image edges. This is compatible relaxation (Brandt, "General highly accurate
     algebraic coarsening", ETNA 10, 2000; Livne, Numer. Linear Algebra Appl. 11, 2004).
-    ``Y`` (the prolonged block) is overwritten. With ``dtype=np.float32`` the steps run in
+    ``target`` is the block of level ``s + 1`` (the block means to keep); it is prolonged
+    here and the relaxed float64 block returned. With ``dtype=np.float32`` the steps run in
     single precision (half the memory traffic); the Rayleigh-Ritz step that follows is float64.
     """
     lev = prob._levels[s]
     G, grid = lev.G, lev.grid
     omega = _RELAX_OMEGA
-    # J = w (D - diag G)^-1 (G - diag G): one scaled copy of G's values per level.
+    # Step: y <- (1 - w) y + J y with J = w (D - diag G)^-1 (G - diag G). J's values are
+    # scaled in float64 (degrees span hundreds of orders of magnitude on flat images) and
+    # stored in ``dtype``, a block of rows at a time so no nnz-sized float64 temporary is made.
     n = G.shape[0]
-    counts = np.diff(G.indptr)
     diag = G.diagonal()
-    inv = omega / np.maximum(prob._deg[s] - diag, 1e-300)
-    data = G.data * np.repeat(inv, counts)
-    if np.any(diag):  # self-loops (Galerkin levels): drop them from J
-        rows = np.repeat(np.arange(n, dtype=G.indices.dtype), counts)
-        data[G.indices == rows] = 0.0
-        del rows
-    J = sp.csr_matrix((data.astype(dtype, copy=False), G.indices, G.indptr), shape=G.shape)
+    off = prob._deg[s] - diag  # weight to the other nodes; 0 for an isolated node (no step)
+    off = np.where(off > 0, off, 1.0)  # isolated nodes: their rows of G are zero anyway
+    data = np.empty(G.nnz, dtype=dtype)
+    indptr, indices = G.indptr, G.indices
+    for r0 in range(0, n, 1 << 20):
+        r1 = min(n, r0 + (1 << 20))
+        a, b = int(indptr[r0]), int(indptr[r1])
+        rows = np.repeat(np.arange(r0, r1, dtype=indices.dtype), np.diff(indptr[r0 : r1 + 1]))
+        part = G.data[a:b] / off[rows]  # ratio first: both may be denormal on flat images
+        part *= omega
+        part[indices[a:b] == rows] = 0.0  # self-loops (Galerkin levels) take no part
+        data[a:b] = part
+    J = sp.csr_matrix((data, indices, indptr), shape=G.shape)
     del data
-    Y = np.ascontiguousarray(Y, dtype=dtype)  # the caller's fresh block: updated in place
     target = target.astype(dtype, copy=False)
+    Y = grid.expand(target)  # prolonged straight into ``dtype``: no float64 full-size block
     for _ in range(steps):
         Y_new = J @ Y
         Y *= 1.0 - omega  # in place: full-size temporaries cost page faults at megapixels
@@ -1098,17 +1116,17 @@ def multiscale_eigenpairs(
     X = Y
     lam, res = np.zeros(0), np.zeros(0)
     for s in range(S - 1, -1, -1) if m > 0 else ():
-        target = X
-        X = problem._levels[s].grid.expand(X)
         final = s == 0
         if s < n_relax:
-            X = _compatible_relaxation(problem, s, X, target, relax_steps, relax_dtype)
+            X = _compatible_relaxation(problem, s, X, relax_steps, relax_dtype)
             if not final:
                 # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
                 lam, X, res = _rayleigh_ritz(problem, s, X, m)
                 iters.append(0)
                 level_res.append(float(res.max()) if res.size else 0.0)
                 continue
+        else:
+            X = problem._levels[s].grid.expand(X)
         it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
         it = 0
         if s < n_relax:  # final level after relaxation: LOBPCG only if the Ritz pairs miss tol

@@ -22,3 +22,15 @@ def test_tall_matmul_accepts_views():
     X = np.arange(40.0).reshape(20, 2)[::2]  # a strided view, not contiguous
     Z = np.eye(2)
     np.testing.assert_array_equal(tall_matmul(X, Z, block=3), X)
+
+
+def test_tall_matmul_in_place_and_shape_check():
+    rng = np.random.default_rng(0)
+    X = rng.standard_normal((1001, 5))
+    Z = rng.standard_normal((5, 5))
+    ref = X @ Z
+    got = tall_matmul(X, Z, block=64, out=X)
+    assert got is X
+    np.testing.assert_allclose(X, ref, rtol=1e-13, atol=1e-13)
+    with pytest.raises(ValueError, match="out must have shape"):
+        tall_matmul(X, Z[:, :2], out=X)
