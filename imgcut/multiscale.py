@@ -928,7 +928,7 @@ def multiscale_eigenpairs(
     sigma_edge: float | None = None,
     tol: float = 1e-5,
     maxiter: int | None = None,
-    level_maxiter: int = 30,
+    level_maxiter: int = 20,
     level_tol: float = 1e-4,
     seed=None,
     coarsest_pixels: int = _COARSEST_PIXELS,
@@ -951,7 +951,7 @@ def multiscale_eigenpairs(
         Residual tolerance on the full-resolution pencil (see Returns).
     maxiter : int, optional
         LOBPCG iterations allowed on the full-resolution level (default 60).
-    level_maxiter : int, default 30
+    level_maxiter : int, default 20
         LOBPCG iterations on each intermediate level refined by LOBPCG (they improve the
         start of the finer levels; see ``relax_levels``).
     level_tol : float, default 1e-4

@@ -314,5 +314,5 @@ def test_one_megapixel_known_regions_through_segment_defaults():
     from scipy.optimize import linear_sum_assignment
 
     r, c = linear_sum_assignment(-table)
-    # measured 0.9998 (30 LOBPCG iterations allowed per coarse level; 10 merged a region: 0.896)
+    # measured 0.9998 (20 LOBPCG iterations allowed per coarse level; 10 merged a region: 0.896)
     assert table[r, c].sum() / (h * w) >= 0.99
