@@ -73,9 +73,7 @@ def main(argv=None) -> None:
             for basis in (int(b) for b in args.basis.split(",")):
                 spectral.ARPACK_MIN_BASIS, spectral.ARPACK_GUARD = basis, guard
                 t = time.process_time()
-                ep = spectral.laplacian_eigenpairs(
-                    W, args.k, solver="arpack", tol=args.tol, seed=0
-                )
+                ep = spectral.laplacian_eigenpairs(W, args.k, solver="arpack", tol=args.tol, seed=0)
                 cpu = time.process_time() - t
                 vals = " ".join(f"{v:.4e}" for v in ep.values)
                 print(
