@@ -46,7 +46,7 @@ from imgcut._errors import EigenConvergenceWarning
 from imgcut._linalg import tall_matmul
 from imgcut.features import Features, compute_features
 from imgcut.graph import AffinityGraph, affinity_graph
-from imgcut.spectral import FLOAT32_MIN_TOL, Eigenpairs, laplacian_eigenpairs
+from imgcut.spectral import DENSE_MAX_NODES, FLOAT32_MIN_TOL, Eigenpairs, laplacian_eigenpairs
 
 __all__ = [
     "AUTO_MULTISCALE_PIXELS",
@@ -82,6 +82,9 @@ _RELAX_OMEGA = 0.8
 # (relax_levels="auto"); a choice of this project, measured in docs/multiscale.md.
 RELAX_MIN_PIXELS = 100_000
 _RELAX_STEPS = 8
+# Lanczos restarts allowed on the coarsest level before LAPACK takes over (the BSDS photo
+# levels need about 10).
+_COARSE_RESTARTS = 100
 _RESYNC = 5  # LOBPCG iterations between explicit recomputations of A X and B X
 _TRACE = None  # debugging hook: a list collects the residuals of every LOBPCG iteration
 
@@ -1067,10 +1070,17 @@ def multiscale_eigenpairs(
     t0 = time.perf_counter()
     Gs = problem._levels[S].G
     nS = Gs.shape[0]
-    coarse_solver = "auto"  # LAPACK up to 1000 nodes, Lanczos above (spectral.py)
-    coarse = laplacian_eigenpairs(
-        Gs, min(k + _GUARD, nS), solver=coarse_solver, tol=min(tol, 1e-6), seed=rng
-    )
+    k_coarse, tol_coarse = min(k + _GUARD, nS), min(tol, 1e-6)
+    # LAPACK up to 1000 nodes, Lanczos above (10x faster than LAPACK on 2 500-node photo
+    # levels). Near one-dimensional levels (a 3 x 200 000 strip) have eigenvalues so clustered
+    # that Lanczos crawls, so it gets a restart budget and LAPACK takes over when it runs out.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", EigenConvergenceWarning)
+        coarse = laplacian_eigenpairs(
+            Gs, k_coarse, solver="auto", tol=tol_coarse, seed=rng, maxiter=_COARSE_RESTARTS
+        )
+    if not coarse.converged and nS <= DENSE_MAX_NODES:
+        coarse = laplacian_eigenpairs(Gs, k_coarse, solver="dense", tol=tol_coarse, seed=rng)
     timings["coarse_solve"] = time.perf_counter() - t0
     info["coarse_values"] = coarse.values.tolist()
     if S == 0:

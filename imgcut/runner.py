@@ -654,7 +654,13 @@ def choose_method(options: SegmentOptions, shape: tuple[int, ...]) -> tuple[str,
     if len(shape) != 3 or shape[2] != 3:
         what = "grey" if len(shape) == 2 else f"{shape[2]}-channel"
         pixels = int(shape[0]) * int(shape[1])
-        if options.scale == "auto" and options.n_regions is not None and pixels > _AUTO_MULTI:
+        wide = min(int(shape[0]), int(shape[1])) >= 16  # as imgcut.segment's scale="auto"
+        if (
+            options.scale == "auto"
+            and options.n_regions is not None
+            and pixels > _AUTO_MULTI
+            and wide
+        ):
             return (
                 "kway",
                 f"{what} image of {pixels} pixels (over {_AUTO_MULTI}): k-way normalized cut "

@@ -293,7 +293,8 @@ def segment(
         solved coarse to fine; much less time and memory on large images, partitioned with
         ``method="kway"`` (required), no ``mask``. ``"auto"``: ``"multi"`` for
         ``method="kway"`` without a mask on images of more than
-        :data:`imgcut.multiscale.AUTO_MULTISCALE_PIXELS` pixels, else ``"single"``.
+        :data:`imgcut.multiscale.AUTO_MULTISCALE_PIXELS` pixels and at least 16 pixels in
+        each dimension, else ``"single"``.
         ``memory_budget`` guards the single-scale graph only (the multiscale path's peak
         memory is measured in ``docs/multiscale.md``).
     Returns
@@ -374,8 +375,13 @@ def segment(
     _check_choice("scale", scale, SCALES)
     scale_asked = scale
     if scale == "auto":
-        big = int(np.prod(np.shape(image)[:2])) > AUTO_MULTISCALE_PIXELS
-        scale = "multi" if (big and method == "kway" and mask is None) else "single"
+        h_w = np.shape(image)[:2]
+        big = int(np.prod(h_w)) > AUTO_MULTISCALE_PIXELS
+        # A strip narrower than 16 pixels has no coarse levels to speak of (it halves to one
+        # row): the multiscale pencil would be the single-scale graph.
+        wide = len(h_w) == 2 and min(h_w) >= 16
+        multi_ok = method == "kway" and mask is None and wide
+        scale = "multi" if (big and multi_ok) else "single"
     if tol is None:
         tol = MULTISCALE_TOL if scale == "multi" else SINGLE_SCALE_TOL
     if maxiter is None and scale == "multi":

@@ -316,3 +316,31 @@ def test_one_megapixel_known_regions_through_segment_defaults():
     r, c = linear_sum_assignment(-table)
     # measured 0.9998 (20 LOBPCG iterations allowed per coarse level; 10 merged a region: 0.896)
     assert table[r, c].sum() / (h * w) >= 0.99
+
+
+def test_coarsest_solve_falls_back_to_lapack_when_lanczos_runs_out(monkeypatch):
+    import sys
+
+    from imgcut.spectral import laplacian_eigenpairs
+
+    mod = sys.modules["imgcut.multiscale"]
+    monkeypatch.setattr(mod, "_COARSE_RESTARTS", 1)  # Lanczos cannot converge in one restart
+    img = _image(45, 40)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", EigenConvergenceWarning)  # no warning leaks out
+        ep = multiscale_eigenpairs(img, 4, levels=1, radius_coarse=3, seed=0)
+    ref = laplacian_eigenpairs(affinity_graph(img, radius=3).weights, 4, solver="dense")
+    assert "dense" in ep.solver
+    np.testing.assert_allclose(ep.values, ref.values, atol=1e-10)
+
+
+def test_scale_auto_keeps_thin_strips_single_scale(monkeypatch):
+    import sys
+
+    import imgcut
+
+    monkeypatch.setattr(sys.modules["imgcut.segment"], "AUTO_MULTISCALE_PIXELS", 100)
+    strip = np.zeros((8, 120))
+    strip[:, 60:] = 1.0
+    res = imgcut.segment(strip, 2, method="kway", radius=2)
+    assert res.params["scale_used"] == "single"  # fewer than 16 rows: no coarse levels
