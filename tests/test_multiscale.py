@@ -214,8 +214,8 @@ def test_constant_image():
     assert ep.values[0] == 0.0 and np.all(np.diff(ep.values) >= 0)
 
 
-@pytest.mark.slow
-def test_one_megapixel_known_regions():
+def _four_regions_1mp():
+    """1024 x 1024: four flat regions (a half, a disc, a quarter band) plus noise 0.03."""
     h = w = 1024
     rng = np.random.default_rng(0)
     yy, xx = np.mgrid[0:h, 0:w]
@@ -223,21 +223,30 @@ def test_one_megapixel_known_regions():
     truth[:, w // 2 :] = 1
     truth[(yy - 300) ** 2 + (xx - 260) ** 2 < 180**2] = 2
     truth[h * 3 // 4 :, : w // 2] = 3
-    levels = np.array([0.1, 0.9, 0.5, 0.3])
-    img = levels[truth] + 0.03 * rng.standard_normal((h, w))
+    img = np.array([0.1, 0.9, 0.5, 0.3])[truth] + 0.03 * rng.standard_normal((h, w))
+    return img, truth
+
+
+def _pixel_accuracy(labels, truth) -> float:
+    """Fraction of pixels right under the best one-to-one matching of labels to classes
+    (Hungarian assignment, scipy.optimize.linear_sum_assignment)."""
+    from scipy.optimize import linear_sum_assignment
+
+    _, labels = np.unique(np.ravel(labels), return_inverse=True)
+    table = np.zeros((labels.max() + 1, truth.max() + 1))
+    np.add.at(table, (labels, truth.ravel()), 1)
+    r, c = linear_sum_assignment(-table)
+    return float(table[r, c].sum() / truth.size)
+
+
+@pytest.mark.slow
+def test_one_megapixel_known_regions():
+    img, truth = _four_regions_1mp()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         ep = multiscale_eigenpairs(img, 4, seed=0, tol=1e-4, maxiter=30)
-    _, labels = np.unique(kway_ncut(ep, 4, seed=0), return_inverse=True)
-    # pixel accuracy under the best matching of labels to truth classes
-    table = np.zeros((labels.max() + 1, 4))
-    np.add.at(table, (labels, truth.ravel()), 1)
-    from scipy.optimize import linear_sum_assignment
-
-    r, c = linear_sum_assignment(-table)
-    accuracy = table[r, c].sum() / (h * w)
     # measured 0.9964 (residual 1.3e-3 after 30 iterations); 0.896 with maxiter=10
-    assert accuracy >= 0.99
+    assert _pixel_accuracy(kway_ncut(ep, 4, seed=0), truth) >= 0.99
 
 
 # --------------------------------------------------------------------------- relaxation
@@ -297,25 +306,13 @@ def test_one_megapixel_known_regions_through_segment_defaults():
     (scale="auto") and, with its default tolerance, recovers regions known by construction."""
     import imgcut
 
-    h = w = 1024
-    rng = np.random.default_rng(0)
-    yy, xx = np.mgrid[0:h, 0:w]
-    truth = np.zeros((h, w), dtype=int)
-    truth[:, w // 2 :] = 1
-    truth[(yy - 300) ** 2 + (xx - 260) ** 2 < 180**2] = 2
-    truth[h * 3 // 4 :, : w // 2] = 3
-    img = np.array([0.1, 0.9, 0.5, 0.3])[truth] + 0.03 * rng.standard_normal((h, w))
+    img, truth = _four_regions_1mp()
     with warnings.catch_warnings():
         warnings.simplefilter("error", EigenConvergenceWarning)  # the default run meets tol
         res = imgcut.segment(img, 4, method="kway", seed=0)
     assert res.params["scale_used"] == "multi"
-    table = np.zeros((res.labels.max() + 1, 4))
-    np.add.at(table, (res.labels.ravel(), truth.ravel()), 1)
-    from scipy.optimize import linear_sum_assignment
-
-    r, c = linear_sum_assignment(-table)
     # measured 0.9998 (20 LOBPCG iterations allowed per coarse level; 10 merged a region: 0.896)
-    assert table[r, c].sum() / (h * w) >= 0.99
+    assert _pixel_accuracy(res.labels, truth) >= 0.99
 
 
 def test_coarsest_solve_falls_back_to_lapack_when_lanczos_runs_out(monkeypatch):
