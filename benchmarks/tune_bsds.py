@@ -152,13 +152,8 @@ def evaluate(ids, preset, cache: Path, levels) -> dict:
             base,
             strength,
             tensor=local if preset.oriented else None,
-            min_area=preset.min_area,
-            size_scale=preset.size_scale,
-            size_power=preset.size_power,
-            strength_power=preset.strength_power,
             features=features,
-            similarity_weight=preset.similarity_weight,
-            similarity_mix=preset.similarity_mix,
+            **preset.merge_options(),
         )
         rows.append(_sweep_scores(h, _tables(h.base_labels, segs), levels))
     r = np.array(rows)  # (images, levels, 4)

@@ -639,12 +639,7 @@ def image_hierarchy(
         base,
         gb.strength,
         tensor=gb.tensor if p.oriented else None,
-        min_area=p.min_area,
-        size_scale=p.size_scale,
-        size_power=p.size_power,
-        strength_power=p.strength_power,
         features=features,
-        similarity_weight=p.similarity_weight,
-        similarity_mix=p.similarity_mix,
+        **p.merge_options(),
     )
     return replace(h, boundary=gb.strength, default_level=p.default_level)

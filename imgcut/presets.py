@@ -143,6 +143,18 @@ class BoundaryPreset:
             n_textons=self.n_textons,
         )
 
+    def merge_options(self) -> dict:
+        """Keyword arguments of :func:`imgcut.hierarchy.merge_regions` set by the preset
+        (the caller adds ``tensor`` and ``features``, which depend on the image)."""
+        return dict(
+            min_area=self.min_area,
+            size_scale=self.size_scale,
+            size_power=self.size_power,
+            strength_power=self.strength_power,
+            similarity_weight=self.similarity_weight,
+            similarity_mix=self.similarity_mix,
+        )
+
     def as_dict(self) -> dict:
         """Plain dict of every field (for run records)."""
         return asdict(self)

@@ -96,6 +96,12 @@ def test_merge_fields_reach_the_hierarchy():
     np.testing.assert_array_equal(h.edge_levels, direct.edge_levels)
     plain = hierarchy.merge_regions(base, gb.strength, tensor=gb.tensor)
     assert not np.array_equal(plain.edge_levels, direct.edge_levels)
+    # merge_options names exactly the preset's fields of merge_regions, spelled out above
+    import inspect
+
+    params = inspect.signature(hierarchy.merge_regions).parameters
+    assert set(p.merge_options()) <= set(params)
+    assert p.merge_options()["similarity_mix"] == p.similarity_mix
 
 
 def test_fluorescence_keeps_the_plain_mean_merge():
