@@ -36,6 +36,7 @@ from imgcut._errors import ImageReadError, OutputExistsError, OutputFolderError
 from imgcut.export import LABEL_FORMATS, output_names, record_to_json, render_outputs
 from imgcut.io import DEFAULT_MAX_PIXELS, atomic_write, read_image, stale_partials
 from imgcut.multiscale import AUTO_MULTISCALE_PIXELS as _AUTO_MULTI
+from imgcut.segment import auto_scale
 
 __all__ = [
     "CUES",
@@ -654,13 +655,8 @@ def choose_method(options: SegmentOptions, shape: tuple[int, ...]) -> tuple[str,
     if len(shape) != 3 or shape[2] != 3:
         what = "grey" if len(shape) == 2 else f"{shape[2]}-channel"
         pixels = int(shape[0]) * int(shape[1])
-        wide = min(int(shape[0]), int(shape[1])) >= 16  # as imgcut.segment's scale="auto"
-        if (
-            options.scale == "auto"
-            and options.n_regions is not None
-            and pixels > _AUTO_MULTI
-            and wide
-        ):
+        large = auto_scale(shape[:2], "kway") == "multi"  # the library's own rule
+        if options.scale == "auto" and options.n_regions is not None and large:
             return (
                 "kway",
                 f"{what} image of {pixels} pixels (over {_AUTO_MULTI}): k-way normalized cut "

@@ -22,7 +22,7 @@ from imgcut.partition import Hierarchy, SplitRecord, kway_ncut, recursive_ncut
 from imgcut.regions import enforce_connectivity, pair_weights, renumber_raster
 from imgcut.spectral import SOLVERS, laplacian_eigenpairs
 
-__all__ = ["segment", "Segmentation", "METHODS", "KWAY_METHODS"]
+__all__ = ["segment", "Segmentation", "METHODS", "KWAY_METHODS", "auto_scale"]
 
 #: Valid values of ``method``.
 METHODS = ("recursive", "kway")
@@ -48,6 +48,37 @@ MULTISCALE_TOL = 3e-2
 MULTISCALE_MAXITER = 0
 #: Radius of the full-resolution graph on the multiscale path (8 neighbours).
 MULTISCALE_RADIUS_FINE = 1.5
+
+
+def auto_scale(shape: tuple[int, ...], method: str, *, masked: bool = False) -> str:
+    """The scale ``segment(scale="auto")`` uses for an image of ``shape``.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        ``(H, W)`` of the image.
+    method : str
+        The region method (only ``"kway"`` can use the multiscale path).
+    masked : bool, default False
+        Whether a mask restricts the graph (the multiscale path has none).
+
+    Returns
+    -------
+    str
+        ``"multi"`` above ``AUTO_MULTISCALE_PIXELS`` pixels for an unmasked k-way cut of an
+        image at least 16 pixels in each dimension (a narrower strip halves to one row and
+        has no coarse levels), else ``"single"``.
+
+    Examples
+    --------
+    >>> auto_scale((2048, 2048), "kway"), auto_scale((2048, 2048), "recursive")
+    ('multi', 'single')
+    >>> auto_scale((3, 200_000), "kway")
+    'single'
+    """
+    h, w = (int(v) for v in shape[:2])
+    big = h * w > AUTO_MULTISCALE_PIXELS
+    return "multi" if big and min(h, w) >= 16 and method == "kway" and not masked else "single"
 
 
 @dataclass(frozen=True, eq=False)
@@ -375,13 +406,7 @@ def segment(
     _check_choice("scale", scale, SCALES)
     scale_asked = scale
     if scale == "auto":
-        h_w = np.shape(image)[:2]
-        big = int(np.prod(h_w)) > AUTO_MULTISCALE_PIXELS
-        # A strip narrower than 16 pixels has no coarse levels to speak of (it halves to one
-        # row): the multiscale pencil would be the single-scale graph.
-        wide = len(h_w) == 2 and min(h_w) >= 16
-        multi_ok = method == "kway" and mask is None and wide
-        scale = "multi" if (big and multi_ok) else "single"
+        scale = auto_scale(np.shape(image)[:2], method, masked=mask is not None)
     if tol is None:
         tol = MULTISCALE_TOL if scale == "multi" else SINGLE_SCALE_TOL
     if maxiter is None and scale == "multi":
