@@ -665,7 +665,8 @@ class _VCycle:
         self.prob = prob
         self.sigma = sigma
         S = prob.n_levels - 1
-        self.inv_diag = [None if s == S else 1.0 / prob.l1_diagonal(s, sigma) for s in range(S + 1)]
+        # l1 diagonals per level on first use: the relaxed fine levels never enter a V-cycle
+        self._inv_diag: dict[int, np.ndarray] = {}
         G = prob._levels[S].G
         d = prob._deg[S]
         M = sp.csr_matrix(sp.diags((1.0 + sigma) * d) - G)
@@ -679,13 +680,18 @@ class _VCycle:
         self.pre = 1  # smoothing steps before and after the coarse correction
         self.gamma = 1  # coarse corrections per level (1: V-cycle, 2: W-cycle)
 
+    def inv_diag(self, s: int) -> np.ndarray:
+        if s not in self._inv_diag:
+            self._inv_diag[s] = 1.0 / self.prob.l1_diagonal(s, self.sigma)
+        return self._inv_diag[s]
+
     def __call__(self, s: int, r: np.ndarray) -> np.ndarray:
         if s == self.S:
             return np.column_stack(
                 [self.ml.solve(r[:, j], maxiter=1, cycle="V", tol=1e-30) for j in range(r.shape[1])]
             )
         omega = 1.0  # l1-Jacobi needs no damping (Baker et al. 2011)
-        dinv = self.inv_diag[s][:, None]
+        dinv = self.inv_diag(s)[:, None]
         grid = self.prob._levels[s].grid
         e = omega * dinv * r
         for _ in range(self.pre - 1):
