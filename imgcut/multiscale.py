@@ -71,10 +71,10 @@ _CUES = ("combined", "intensity", "contour")
 _PRECONDITIONERS = ("vcycle", "jacobi")
 # Extra LOBPCG columns beyond the wanted ones (guard vectors; common practice, they speed
 # up the convergence of the last wanted pairs and let new fine-level modes enter).
-_GUARD = 0
+_GUARD = 1
 # Shift of the preconditioned operator A + sigma B (B-relative, so the pencil's eigenvalues
 # near 0 are not amplified beyond 1/sigma); chosen by trials on 96x96 photographs.
-_PRECOND_SHIFT = 0.1
+_PRECOND_SHIFT = 0.01
 # Damping of the Jacobi steps of the compatible relaxation (common practice for Jacobi
 # smoothing on graphs with odd cycles; 1.0 oscillates on bipartite stencils).
 _RELAX_OMEGA = 0.8
@@ -85,6 +85,9 @@ _RELAX_STEPS = 8
 # Lanczos restarts allowed on the coarsest level before LAPACK takes over (the BSDS photo
 # levels need about 10).
 _COARSE_RESTARTS = 100
+# The V-cycle solves its bottom level (further aggregates of the coarsest graph) densely
+# once it has at most this many nodes (Cholesky of 700 x 700: a few milliseconds).
+_DENSE_BOTTOM = 700
 _RESYNC = 5  # LOBPCG iterations between explicit recomputations of A X and B X
 _TRACE = None  # debugging hook: a list collects the residuals of every LOBPCG iteration
 
@@ -213,25 +216,19 @@ class _Grid:
             cnt[:, -1] /= 2
         self.counts = cnt.ravel()
 
-    def _pad(self, x: np.ndarray) -> np.ndarray:
-        h, w = self.shape
-        m = x.shape[1]
-        g = x.reshape(h, w, m)
-        if h % 2 or w % 2:
-            g2 = np.zeros((h + h % 2, w + w % 2, m))
-            g2[:h, :w] = g
-            g = g2
-        return g
-
     def block_sum(self, x: np.ndarray) -> np.ndarray:
         """``P^T x`` for ``x`` of shape (n, m)."""
-        g = self._pad(x)
-        m = g.shape[2]
-        # four strided adds: much faster than a reduction over two non-contiguous axes
-        s = g[0::2, 0::2] + g[1::2, 0::2]
-        s += g[0::2, 1::2]
-        s += g[1::2, 1::2]
-        return s.reshape(-1, m)
+        h, w = self.shape
+        hc, wc = self.coarse
+        m = x.shape[1]
+        g = x.reshape(h, w, m)
+        # four strided adds (odd edges: the partial blocks take what they have); much
+        # faster than a reduction over two non-contiguous axes or a zero-padded copy
+        s = g[0::2, 0::2].copy()
+        s[: h // 2] += g[1::2, 0::2]
+        s[:, : w // 2] += g[0::2, 1::2]
+        s[: h // 2, : w // 2] += g[1::2, 1::2]
+        return s.reshape(hc * wc, m)
 
     def average(self, x: np.ndarray) -> np.ndarray:
         """``C x``: block means."""
@@ -240,21 +237,35 @@ class _Grid:
     def expand(self, z: np.ndarray) -> np.ndarray:
         """``P z``: copy every block value to its pixels."""
         h, w = self.shape
-        hc, wc = self.coarse
         m = z.shape[1]
-        g = z.reshape(hc, 1, wc, 1, m)
-        g = np.broadcast_to(g, (hc, 2, wc, 2, m)).reshape(2 * hc, 2 * wc, m)
-        return np.ascontiguousarray(g[:h, :w]).reshape(h * w, m)
+        x = np.empty((h * w, m), dtype=z.dtype)
+        self._put(x, z, add=False)
+        return x
 
-    def add_expanded(self, x: np.ndarray, z: np.ndarray) -> None:
-        """``x += P z`` in place (no full-size temporary when both sides are even)."""
+    def _put(self, x: np.ndarray, z: np.ndarray, add: bool) -> None:
         h, w = self.shape
-        if h % 2 or w % 2:
-            x += self.expand(z)
-            return
         hc, wc = self.coarse
         m = x.shape[1]
-        x.reshape(hc, 2, wc, 2, m)[...] += z.reshape(hc, 1, wc, 1, m)
+        g = x.reshape(h, w, m)
+        zc = z.reshape(hc, wc, m)
+        parts = (
+            (g[0::2, 0::2], zc),
+            (g[1::2, 0::2], zc[: h // 2]),
+            (g[0::2, 1::2], zc[:, : w // 2]),
+            (g[1::2, 1::2], zc[: h // 2, : w // 2]),
+        )
+        for dst, src in parts:  # four strided writes, any parity of h and w
+            if add:
+                dst += src
+            else:
+                dst[...] = src
+
+    def add_expanded(self, x: np.ndarray, z: np.ndarray) -> None:
+        """``x += P z`` in place (no full-size temporary)."""
+        if not x.flags.c_contiguous:  # a reshape would copy: the writes would be lost
+            x += self.expand(z)
+            return
+        self._put(x, z, add=True)
 
     def average_t(self, z: np.ndarray) -> np.ndarray:
         """``C^T z``."""
@@ -352,12 +363,15 @@ def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 22) -> sp.csr_matrix:
     # each chunk gives complete, disjoint rows of the result and the parts are stacked
     # (adding full-size partial sums instead made the cost grow with chunks x size).
     step = max(2, (chunk_rows // w) // 2 * 2)
-    parts = []
-    for y0 in range(0, h, step):
-        y1 = min(h, y0 + step)
-        part = P[y0 * w : y1 * w].T @ (W[y0 * w : y1 * w] @ P)
-        parts.append(sp.csr_matrix(part)[(y0 // 2) * wc : ((y1 + 1) // 2) * wc])
-    out = sp.csr_matrix(sp.vstack(parts, format="csr"))
+    if step >= h:  # one chunk: no row slices (each would copy W)
+        out = sp.csr_matrix(P.T @ (W @ P))
+    else:
+        parts = []
+        for y0 in range(0, h, step):
+            y1 = min(h, y0 + step)
+            part = P[y0 * w : y1 * w].T @ (W[y0 * w : y1 * w] @ P)
+            parts.append(sp.csr_matrix(part)[(y0 // 2) * wc : ((y1 + 1) // 2) * wc])
+        out = sp.csr_matrix(sp.vstack(parts, format="csr"))
     out.sum_duplicates()
     out.sort_indices()
     return out
@@ -655,52 +669,67 @@ class _VCycle:
 
     The level pencils are Galerkin projections of each other (``P^T A_s P = A_{s+1}``), so
     this is aggregation multigrid with the hierarchy the multiscale graph already has:
-    damped Jacobi smoothing (one pre-, one post-step), piecewise-constant transfer, and one
-    smoothed-aggregation cycle (pyamg) on the explicit sparse coarsest pencil.
+    l1-Jacobi smoothing (one pre-, one post-step) and piecewise-constant transfer. Below the
+    problem's coarsest level the cycle goes on through further 2x2 Galerkin aggregates of
+    the coarsest graph until at most ``_DENSE_BOTTOM`` nodes remain, where the shifted
+    pencil is solved exactly by a dense Cholesky factor. Every step acts on the whole block
+    of columns at once (a per-column algebraic-multigrid solve on the coarsest level cost
+    more than the rest of the cycle on the 481 x 321 photographs).
     """
 
-    def __init__(self, prob: MultiscaleProblem, sigma: float, rng: np.random.Generator):
-        import pyamg
-
+    def __init__(self, prob: MultiscaleProblem, sigma: float):
         self.prob = prob
         self.sigma = sigma
         S = prob.n_levels - 1
         # l1 diagonals per level on first use: the relaxed fine levels never enter a V-cycle
         self._inv_diag: dict[int, np.ndarray] = {}
+        # Plain graph levels from the coarsest one down: (G, degrees, grid to the next).
+        shape = prob.shapes[S]
         G = prob._levels[S].G
-        d = prob._deg[S]
-        M = sp.csr_matrix(sp.diags((1.0 + sigma) * d) - G)
-        state = np.random.get_state()  # noqa: NPY002 (pyamg reads the legacy state)
-        np.random.seed(int(rng.integers(2**31 - 1)))  # noqa: NPY002
-        try:
-            self.ml = pyamg.smoothed_aggregation_solver(M, max_coarse=500)
-        finally:
-            np.random.set_state(state)  # noqa: NPY002
+        extra = []
+        while shape[0] * shape[1] > _DENSE_BOTTOM and min(shape) >= 2:
+            grid = _Grid(shape)
+            extra.append((G, np.asarray(G.sum(axis=1)).ravel(), grid))
+            G = galerkin_graph(G, shape)
+            shape = grid.coarse
+        d = np.asarray(G.sum(axis=1)).ravel()
+        M = np.diag((1.0 + sigma) * d) - G.toarray()
+        self.bottom = scipy.linalg.cho_factor(M, lower=True)
+        self.extra = extra
         self.S = S
         self.pre = 1  # smoothing steps before and after the coarse correction
-        self.gamma = 1  # coarse corrections per level (1: V-cycle, 2: W-cycle)
 
     def inv_diag(self, s: int) -> np.ndarray:
         if s not in self._inv_diag:
-            self._inv_diag[s] = 1.0 / self.prob.l1_diagonal(s, self.sigma)
+            if s < self.S:
+                l1 = self.prob.l1_diagonal(s, self.sigma)
+            else:
+                G, d, _ = self.extra[s - self.S]
+                l1 = (2.0 + self.sigma) * d - 2.0 * G.diagonal()
+            self._inv_diag[s] = 1.0 / l1
         return self._inv_diag[s]
 
+    def _apply(self, s: int, e: np.ndarray) -> np.ndarray:
+        if s < self.S:
+            return self.prob.apply(s, e, shift=self.sigma)
+        G, d, _ = self.extra[s - self.S]
+        out = G @ e
+        out *= -1.0
+        out += ((1.0 + self.sigma) * d)[:, None] * e
+        return out
+
     def __call__(self, s: int, r: np.ndarray) -> np.ndarray:
-        if s == self.S:
-            return np.column_stack(
-                [self.ml.solve(r[:, j], maxiter=1, cycle="V", tol=1e-30) for j in range(r.shape[1])]
-            )
-        omega = 1.0  # l1-Jacobi needs no damping (Baker et al. 2011)
-        dinv = self.inv_diag(s)[:, None]
-        grid = self.prob._levels[s].grid
-        e = omega * dinv * r
+        if s == self.S + len(self.extra):
+            return scipy.linalg.cho_solve(self.bottom, r)
+        grid = self.prob._levels[s].grid if s < self.S else self.extra[s - self.S][2]
+        dinv = self.inv_diag(s)[:, None]  # l1-Jacobi needs no damping (Baker et al. 2011)
+        e = dinv * r
         for _ in range(self.pre - 1):
-            e += omega * dinv * (r - self.prob.apply(s, e, shift=self.sigma))
-        for _ in range(self.gamma):  # gamma = 2: W-cycle
-            res = r - self.prob.apply(s, e, shift=self.sigma)
-            e += grid.expand(self(s + 1, grid.block_sum(res)))
+            e += dinv * (r - self._apply(s, e))
+        res = r - self._apply(s, e)
+        grid.add_expanded(e, self(s + 1, grid.block_sum(res)))
         for _ in range(self.pre):
-            e += omega * dinv * (r - self.prob.apply(s, e, shift=self.sigma))
+            e += dinv * (r - self._apply(s, e))
         return e
 
 
@@ -810,16 +839,24 @@ def _refine(
         BW = B(Wt)
         Wt, BW = _b_orthonormalize(Wt, BW)
         AW = A(Wt)
-        blocks = [(X, AX, BX), (Wt, AW, BW)]
-        if P is not None:
-            blocks.append((P, AP, BP))
-        S = [b[0] for b in blocks]
-        AS = [b[1] for b in blocks]
-        BS = [b[2] for b in blocks]
-        GA = np.block([[Si.T @ ASj for ASj in AS] for Si in S])
-        GB = np.block([[Si.T @ BSj for BSj in BS] for Si in S])
-        GA = (GA + GA.T) / 2
-        GB = (GB + GB.T) / 2
+        # Gram matrices of span[X, W, P]. X and W are B-orthonormal (X^T B X = W^T B W = I)
+        # and X^T A X = diag(lam) (X holds Ritz vectors), so only the other blocks are
+        # computed, one small GEMM each (Knyazev 2001; the implicit blocks are what
+        # standard LOBPCG implementations use until the residuals are tiny).
+        mw = Wt.shape[1]
+        XAW, XBW, WAW = X.T @ AW, X.T @ BW, Wt.T @ AW
+        eye_m, eye_w = np.eye(m), np.eye(mw)
+        if P is None:
+            S, AS, BS = [X, Wt], [AX, AW], [BX, BW]
+            GA = np.block([[np.diag(lam), XAW], [XAW.T, WAW]])
+            GB = np.block([[eye_m, XBW], [XBW.T, eye_w]])
+        else:
+            S, AS, BS = [X, Wt, P], [AX, AW, AP], [BX, BW, BP]
+            XAP, XBP = X.T @ AP, X.T @ BP
+            WAP, WBP = Wt.T @ AP, Wt.T @ BP
+            PAP, PBP = P.T @ AP, P.T @ BP
+            GA = np.block([[np.diag(lam), XAW, XAP], [XAW.T, WAW, WAP], [XAP.T, WAP.T, PAP]])
+            GB = np.block([[eye_m, XBW, XBP], [XBW.T, eye_w, WBP], [XBP.T, WBP.T, PBP]])
         # Rayleigh-Ritz in a B-orthonormal basis of span[X, W, P]; directions that became
         # linearly dependent (tiny eigenvalues of the Gram matrix) are dropped.
         gw, gv = np.linalg.eigh(GB)
@@ -937,7 +974,7 @@ def multiscale_eigenpairs(
     sigma_edge: float | None = None,
     tol: float = 1e-5,
     maxiter: int | None = None,
-    level_maxiter: int = 20,
+    level_maxiter: int = 15,
     level_tol: float = 1e-4,
     seed=None,
     coarsest_pixels: int = _COARSEST_PIXELS,
@@ -1091,10 +1128,10 @@ def multiscale_eigenpairs(
     info["coarse_values"] = coarse.values.tolist()
     if S == 0:
         timings["total"] = time.perf_counter() - t_start
-        return Eigenpairs(
-            values=coarse.values,
-            vectors=coarse.vectors,
-            residuals=coarse.residuals,
+        return Eigenpairs(  # without the guard pairs
+            values=coarse.values[:k],
+            vectors=coarse.vectors[:, :k],
+            residuals=coarse.residuals[:k],
             solver=f"single-scale ({coarse.solver})",
             iterations=coarse.iterations,
             n_components=coarse.n_components,
@@ -1120,7 +1157,7 @@ def multiscale_eigenpairs(
     def precond(level: int, r: np.ndarray) -> np.ndarray:
         if not vcycle:
             t_setup = time.perf_counter()
-            vcycle.append(_VCycle(problem, _PRECOND_SHIFT, rng))
+            vcycle.append(_VCycle(problem, _PRECOND_SHIFT))
             timings["precond_setup"] += time.perf_counter() - t_setup
         return vcycle[0](level, r)
 
@@ -1133,17 +1170,21 @@ def multiscale_eigenpairs(
     lam, res = np.zeros(0), np.zeros(0)
     for s in range(S - 1, -1, -1) if m > 0 else ():
         final = s == 0
-        if s < n_relax:
-            X = _compatible_relaxation(problem, s, X, relax_steps, relax_dtype)
-            if not final:
-                # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
-                lam, X, res = _rayleigh_ritz(problem, s, X, m)
-                iters.append(0)
-                level_res.append(float(res.max()) if res.size else 0.0)
-                continue
+        # Every level starts from the relaxed prolongation (on LOBPCG levels too: a better
+        # start than the piecewise-constant one, at the cost of a few sparse products).
+        X = _compatible_relaxation(problem, s, X, relax_steps, relax_dtype)
+        if s < n_relax and not final:
+            # Rayleigh-Ritz only: B-orthonormal Ritz vectors of the relaxed block.
+            lam, X, res = _rayleigh_ritz(problem, s, X, m)
+            iters.append(0)
+            level_res.append(float(res.max()) if res.size else 0.0)
+            continue
+        if final:
+            it_max = maxiter if maxiter is not None else 60
+        elif s == n_relax:  # the finest LOBPCG level costs 4x the next: half the cap
+            it_max = (level_maxiter + 1) // 2
         else:
-            X = problem._levels[s].grid.expand(X)
-        it_max = (maxiter if maxiter is not None else 60) if final else level_maxiter
+            it_max = level_maxiter
         it = 0
         if s < n_relax:  # final level after relaxation: LOBPCG only if the Ritz pairs miss tol
             lam, X, res = _rayleigh_ritz(problem, s, X, m)

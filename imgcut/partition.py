@@ -992,12 +992,12 @@ def discretize(
         # Sculley 2010).
         Xt = Xt[np.sort(rng.choice(n, DISCRETIZE_SAMPLE, replace=False))]
         n = Xt.shape[0]
-    XtT = np.ascontiguousarray(Xt.T)
+    ones, rows = np.ones(n), np.arange(n)
     for _ in range(max_iter):
         # Yu & Shi 2003, eq. (12): the discrete X nearest to X~ R
         labels = np.argmax(tall_matmul(Xt, R), axis=1)
-        # X^T X~ (k, k): per-class column sums of X~
-        M = np.stack([np.bincount(labels, weights=col, minlength=k) for col in XtT], axis=1)
+        # X^T X~ (k, k): per-class column sums of X~, as one sparse one-hot product
+        M = sp.csr_matrix((ones, (labels, rows)), shape=(k, n)) @ Xt
         U, S, Vt = np.linalg.svd(M)  # Yu & Shi 2003, Fig. 2 step 5
         obj = float(S.sum())
         if obj <= best_obj + 1e-12 * max(1.0, abs(obj)):

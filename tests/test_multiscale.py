@@ -10,6 +10,7 @@ import pytest
 import scipy.linalg
 import scipy.sparse as sp
 
+from imgcut import multiscale as ms
 from imgcut._errors import EigenConvergenceWarning
 from imgcut.features import compute_features
 from imgcut.graph import affinity_graph
@@ -116,6 +117,49 @@ def test_bad_options():
 
 
 # --------------------------------------------------------------------------- the pencil
+
+
+@pytest.mark.parametrize("shape", [(6, 8), (7, 9), (6, 9), (7, 8), (1, 5), (3, 1)])
+def test_grid_block_operators_match_the_prolongation_matrix(shape):
+    # P (and P^T) built independently as a sparse matrix by prolongation(); the fast
+    # strided operators must agree with it for every parity of the grid
+    grid = ms._Grid(shape)
+    P = prolongation(shape, 2).toarray()
+    rng = np.random.default_rng(1)
+    x = rng.standard_normal((shape[0] * shape[1], 3))
+    z = rng.standard_normal((P.shape[1], 3))
+    np.testing.assert_allclose(grid.block_sum(x), P.T @ x, atol=1e-12)
+    np.testing.assert_allclose(grid.expand(z), P @ z, atol=1e-12)
+    y = x.copy()
+    grid.add_expanded(y, z)
+    np.testing.assert_allclose(y, x + P @ z, atol=1e-12)
+    y = np.asfortranarray(x)  # not C-contiguous: must still be updated in place
+    grid.add_expanded(y, z)
+    np.testing.assert_allclose(y, x + P @ z, atol=1e-12)
+    np.testing.assert_allclose(grid.average(x), (P / P.sum(axis=0)).T @ x, atol=1e-12)
+
+
+@pytest.mark.parametrize("bottom", [700, 20])
+def test_vcycle_is_a_convergent_symmetric_preconditioner(monkeypatch, bottom):
+    # bottom=20 sends the cycle through extra aggregates below the coarsest level
+    monkeypatch.setattr(ms, "_DENSE_BOTTOM", bottom)
+    prob = multiscale_problem(_image(16, 14), levels=2)
+    sigma = 0.01
+    vc = ms._VCycle(prob, sigma)
+    assert (len(vc.extra) > 0) == (bottom == 20)
+    A, B = _dense_pencil(prob)
+    M = A + sigma * B
+    n = M.shape[0]
+    V = vc(0, np.eye(n))  # the preconditioner as a matrix
+    # A symmetric V-cycle (same smoother before and after, Galerkin coarse levels, exact
+    # bottom solve) is a symmetric positive definite operator whose error propagation
+    # I - V M contracts in the M-norm (Trottenberg, Oosterlee & Schueller, Multigrid,
+    # 2001, sec. 2.4 / 6.2 for aggregation-type cycles).
+    np.testing.assert_allclose(V, V.T, atol=1e-10 * np.abs(V).max())
+    assert np.linalg.eigvalsh((V + V.T) / 2).min() > 0
+    Ms = scipy.linalg.sqrtm(M).real
+    E = Ms @ (np.eye(n) - V @ M) @ np.linalg.inv(Ms)
+    assert np.linalg.norm(E, 2) < 1 - 1e-3
 
 
 def test_pencil_is_symmetric_psd_with_constant_null_vector():
