@@ -70,10 +70,15 @@ _COARSEST_PIXELS = 3_000
 _CUES = ("combined", "intensity", "contour")
 _PRECONDITIONERS = ("vcycle", "jacobi")
 # Extra LOBPCG columns beyond the wanted ones (guard vectors; common practice, they speed
-# up the convergence of the last wanted pairs and let new fine-level modes enter).
+# up the convergence of the last wanted pairs and let new fine-level modes enter). One
+# guard: on a BSDS photo the 9 710-pixel level reached 1e-4 in 18-20 iterations with 2-3
+# guards and stalled at 1e-3 after 36 with none (session 4 traces, docs/multiscale.md).
 _GUARD = 1
-# Shift of the preconditioned operator A + sigma B (B-relative, so the pencil's eigenvalues
-# near 0 are not amplified beyond 1/sigma); chosen by trials on 96x96 photographs.
+# Shift of the preconditioned operator A + sigma B (B-relative). It must be comparable to
+# the wanted eigenvalues (1e-4 to 1e-2 on photographs), else the preconditioner acts like
+# B^-1 on exactly the smooth modes LOBPCG needs: 0.1 left a photo's levels at residual 2e-3
+# after 20 iterations and missed two of the eight smallest eigenvalues; 0.01 converged
+# them (session 4 measurements, docs/multiscale.md).
 _PRECOND_SHIFT = 0.01
 # Damping of the Jacobi steps of the compatible relaxation (common practice for Jacobi
 # smoothing on graphs with odd cycles; 1.0 oscillates on bipartite stencils).
@@ -231,8 +236,10 @@ class _Grid:
         return s.reshape(hc * wc, m)
 
     def average(self, x: np.ndarray) -> np.ndarray:
-        """``C x``: block means."""
-        return self.block_sum(x) / self.counts[:, None]
+        """``C x``: block means (in the dtype of ``x``)."""
+        out = self.block_sum(x)
+        out /= self.counts.astype(out.dtype, copy=False)[:, None]
+        return out
 
     def expand(self, z: np.ndarray) -> np.ndarray:
         """``P z``: copy every block value to its pixels."""
@@ -246,6 +253,14 @@ class _Grid:
         h, w = self.shape
         hc, wc = self.coarse
         m = x.shape[1]
+        if h % 2 == 0 and w % 2 == 0:  # one broadcast operation (1.6-1.9x faster)
+            blocks = x.reshape(hc, 2, wc, 2, m)
+            src = z.reshape(hc, 1, wc, 1, m)
+            if add:
+                blocks += src
+            else:
+                blocks[...] = src
+            return
         g = x.reshape(h, w, m)
         zc = z.reshape(hc, wc, m)
         parts = (
@@ -357,21 +372,34 @@ def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 22) -> sp.csr_matrix:
     W = sp.csr_matrix(W)
     if W.shape != (h * w, h * w):
         raise ValueError(f"W must be ({h * w}, {h * w}) for a grid of shape {shape}; got {W.shape}")
-    P = prolongation((h, w), 2)
-    wc = (w + 1) // 2
-    # Chunks of an even number of image rows: every block row then lies in one chunk, so
-    # each chunk gives complete, disjoint rows of the result and the parts are stacked
-    # (adding full-size partial sums instead made the cost grow with chunks x size).
+    hc, wc = _coarse_shape((h, w))
+    # Block index of every pixel. Each chunk of an even number of image rows gives complete,
+    # disjoint rows of the result: its columns are mapped to blocks in place of a product
+    # with P (duplicates are summed by the product that follows), and its rows are summed
+    # by the sparse product with that chunk's part of P^T. 8x faster than P^T (W P) at
+    # 2048 x 2048 (one sparse-sparse product with 4 ones per row instead of two general
+    # ones and their format conversions).
+    ci = (np.arange(h) // 2)[:, None] * wc + (np.arange(w) // 2)[None, :]
+    ci = ci.ravel().astype(W.indices.dtype)
     step = max(2, (chunk_rows // w) // 2 * 2)
-    if step >= h:  # one chunk: no row slices (each would copy W)
-        out = sp.csr_matrix(P.T @ (W @ P))
-    else:
-        parts = []
-        for y0 in range(0, h, step):
-            y1 = min(h, y0 + step)
-            part = P[y0 * w : y1 * w].T @ (W[y0 * w : y1 * w] @ P)
-            parts.append(sp.csr_matrix(part)[(y0 // 2) * wc : ((y1 + 1) // 2) * wc])
-        out = sp.csr_matrix(sp.vstack(parts, format="csr"))
+    parts = []
+    for y0 in range(0, h, step):
+        y1 = min(h, y0 + step)
+        r0, r1 = y0 * w, y1 * w
+        a, b = int(W.indptr[r0]), int(W.indptr[r1])
+        # views of W's arrays except the mapped columns; nothing here writes into them
+        Wm = sp.csr_matrix(
+            (W.data[a:b], ci[W.indices[a:b]], W.indptr[r0 : r1 + 1] - a),
+            shape=(r1 - r0, hc * wc),
+        )
+        c0 = (y0 // 2) * wc
+        n_rows = ((y1 + 1) // 2) * wc - c0
+        PT = sp.csr_matrix(
+            (np.ones(r1 - r0), (ci[r0:r1] - c0, np.arange(r1 - r0))), shape=(n_rows, r1 - r0)
+        )
+        parts.append(PT @ Wm)
+    out = parts[0] if len(parts) == 1 else sp.vstack(parts, format="csr")
+    out = sp.csr_matrix(out)
     out.sum_duplicates()
     out.sort_indices()
     return out
@@ -997,18 +1025,20 @@ def multiscale_eigenpairs(
         Residual tolerance on the full-resolution pencil (see Returns).
     maxiter : int, optional
         LOBPCG iterations allowed on the full-resolution level (default 60).
-    level_maxiter : int, default 20
+    level_maxiter : int, default 15
         LOBPCG iterations on each intermediate level refined by LOBPCG (they improve the
-        start of the finer levels; see ``relax_levels``).
+        start of the finer levels; see ``relax_levels``). The finest such level, which
+        costs four times the next coarser one, gets half (rounded up).
     level_tol : float, default 1e-4
         Residual at which an intermediate level stops early (``min(tol, level_tol)``). The
         coarse levels decide the regions, so they are converged harder than the
         full-resolution tolerance of the segmentation path asks (docs/multiscale.md).
     seed : None, int or numpy.random.Generator
-        Seeds the coarsest eigensolve and the multigrid setup.
+        Seeds the coarsest eigensolve.
     preconditioner : {"vcycle", "jacobi"}, default "vcycle"
-        LOBPCG preconditioner: one multigrid V-cycle for ``A + 0.1 B`` on the level
-        hierarchy (l1-Jacobi smoothing, pyamg on the coarsest level), or l1-Jacobi alone.
+        LOBPCG preconditioner: one multigrid V-cycle for ``A + 0.01 B`` on the level
+        hierarchy (l1-Jacobi smoothing, further aggregates below the coarsest level and a
+        dense Cholesky solve at the bottom), or l1-Jacobi alone.
     problem : MultiscaleProblem, optional
         A prebuilt problem from :func:`multiscale_problem`; ``image`` is then ignored
         (pass None).
@@ -1051,8 +1081,9 @@ def multiscale_eigenpairs(
     (Rayleigh–Ritz; Parlett, *The Symmetric Eigenvalue Problem*, 1998, thm 11.4.1 / Cauchy
     interlacing). The coarsest pencil has diagonal ``B`` and is solved by
     :func:`imgcut.spectral.laplacian_eigenpairs`; its vectors are prolonged one level at a
-    time and refined with block LOBPCG (Knyazev 2001) preconditioned by ``diag(A)^-1``
-    (nested iteration).
+    time (nested iteration), placed inside the blocks by compatible relaxation, and on
+    levels of at most ``RELAX_MIN_PIXELS`` refined with block LOBPCG (Knyazev 2001, one
+    guard vector) preconditioned by a multigrid V-cycle.
 
     References
     ----------
@@ -1170,6 +1201,10 @@ def multiscale_eigenpairs(
     lam, res = np.zeros(0), np.zeros(0)
     for s in range(S - 1, -1, -1) if m > 0 else ():
         final = s == 0
+        if s < n_relax:
+            # Relaxed levels carry the wanted columns only: a guard vector helps LOBPCG's
+            # convergence, not relaxation, and costs an n x 1 column per block at full size.
+            X = X[:, :m]
         # Every level starts from the relaxed prolongation (on LOBPCG levels too: a better
         # start than the piecewise-constant one, at the cost of a few sparse products).
         X = _compatible_relaxation(problem, s, X, relax_steps, relax_dtype)

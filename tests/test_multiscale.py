@@ -83,6 +83,20 @@ def test_galerkin_graph_preserves_degrees_and_quotient():
     assert q_c == pytest.approx(q_f, rel=1e-12)
 
 
+@pytest.mark.parametrize("shape", [(9, 11), (8, 6), (1, 7), (7, 1)])
+@pytest.mark.parametrize("chunk_rows", [1 << 22, 4, 1])
+def test_galerkin_graph_equals_the_matrix_product_in_chunks(shape, chunk_rows):
+    W = affinity_graph(_image(*shape), radius=2).weights
+    before = W.copy()
+    Gc = galerkin_graph(W, shape, chunk_rows=chunk_rows)
+    P = prolongation(shape, 2)
+    np.testing.assert_allclose((Gc - P.T @ W @ P).toarray(), 0, atol=1e-12)
+    assert Gc.has_sorted_indices
+    # the aggregation reads W's arrays through views: it must not write into them
+    np.testing.assert_array_equal(W.data, before.data)
+    np.testing.assert_array_equal(W.indices, before.indices)
+
+
 def test_galerkin_graph_rejects_wrong_shape():
     with pytest.raises(ValueError, match="grid of shape"):
         galerkin_graph(sp.identity(6, format="csr"), (2, 2))
