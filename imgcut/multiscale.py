@@ -460,9 +460,13 @@ class MultiscaleProblem:
         else:
             out = ((a + b) * self._own_deg[s])[:, None] * z
             if a:
-                out -= a * (W @ z)
-        if lev.grid is not None:
-            out += lev.grid.average_t(self._coarse_apply(s + 1, lev.grid.average(z), a, b))
+                Wz = W @ z
+                Wz *= a
+                out -= Wz
+        if lev.grid is not None:  # out += C^T E_{s+1} C z, without a full-size temporary
+            coarse = self._coarse_apply(s + 1, lev.grid.average(z), a, b)
+            coarse /= lev.grid.counts[:, None]
+            lev.grid.add_expanded(out, coarse)
         return out
 
     def apply(self, s: int, x: np.ndarray, mass: bool = False, shift: float = 0.0) -> np.ndarray:
@@ -483,7 +487,8 @@ class MultiscaleProblem:
             out = (b * self._deg[s])[:, None] * x
         if lev.grid is not None:
             coarse = self._coarse_apply(s + 1, lev.grid.average(x), a, b)
-            lev.grid.add_expanded(out, coarse / lev.grid.counts[:, None])  # += C^T coarse
+            coarse /= lev.grid.counts[:, None]
+            lev.grid.add_expanded(out, coarse)  # += C^T coarse
         return out
 
     def _coarse_diag(self, s: int, mass: bool) -> np.ndarray:
@@ -1168,7 +1173,7 @@ def multiscale_eigenpairs(
             n_components=coarse.n_components,
             component_labels=coarse.component_labels,
             tol=float(tol),
-            converged=coarse.converged,
+            converged=bool(np.all(coarse.residuals[:k] <= tol_coarse)),
             timings=timings,
             info=info,
         )
