@@ -952,12 +952,22 @@ def _compatible_relaxation(
     diag = G.diagonal()
     off = prob._deg[s] - diag  # weight to the other nodes; 0 for an isolated node (no step)
     off = np.where(off > 0, off, 1.0)  # isolated nodes: their rows of G are zero anyway
+    with np.errstate(over="ignore", divide="ignore"):
+        scale = omega / off
+    loops = bool(np.any(diag))  # Galerkin levels carry self-loops; level 0 has none
+    # Row scaling by one multiplication when 1/off is finite; on flat synthetic images the
+    # degrees can be denormal, and then the ratio is formed first (both may be tiny).
+    direct = bool(np.all(np.isfinite(scale)))
     data = np.empty(G.nnz, dtype=dtype)
     indptr, indices = G.indptr, G.indices
     for r0 in range(0, n, 1 << 20):
         r1 = min(n, r0 + (1 << 20))
         a, b = int(indptr[r0]), int(indptr[r1])
-        rows = np.repeat(np.arange(r0, r1, dtype=indices.dtype), np.diff(indptr[r0 : r1 + 1]))
+        counts = np.diff(indptr[r0 : r1 + 1])
+        if direct and not loops:
+            np.multiply(G.data[a:b], np.repeat(scale[r0:r1], counts), out=data[a:b])
+            continue
+        rows = np.repeat(np.arange(r0, r1, dtype=indices.dtype), counts)
         part = G.data[a:b] / off[rows]  # ratio first: both may be denormal on flat images
         part *= omega
         part[indices[a:b] == rows] = 0.0  # self-loops (Galerkin levels) take no part
