@@ -263,13 +263,21 @@ class _Grid:
             return
         g = x.reshape(h, w, m)
         zc = z.reshape(hc, wc, m)
-        parts = (
-            (g[0::2, 0::2], zc),
-            (g[1::2, 0::2], zc[: h // 2]),
-            (g[0::2, 1::2], zc[:, : w // 2]),
-            (g[1::2, 1::2], zc[: h // 2, : w // 2]),
+        he, we = h // 2, w // 2
+        # the complete 2 x 2 blocks as one strided view (x is C-contiguous): one broadcast
+        # operation, then the odd last row and column
+        st = g.strides
+        blocks = np.lib.stride_tricks.as_strided(
+            g, shape=(he, 2, we, 2, m), strides=(2 * st[0], st[0], 2 * st[1], st[1], st[2])
         )
-        for dst, src in parts:  # four strided writes, any parity of h and w
+        parts = [(blocks, zc[:he, :we, None, :][:, None])]
+        if h % 2:
+            parts.append((g[h - 1, : 2 * we].reshape(we, 2, m), zc[he, :we, None, :]))
+        if w % 2:
+            parts.append((g[: 2 * he, w - 1].reshape(he, 2, m), zc[:he, we, None, :]))
+        if h % 2 and w % 2:
+            parts.append((g[h - 1, w - 1], zc[he, we]))
+        for dst, src in parts:
             if add:
                 dst += src
             else:
@@ -1159,7 +1167,8 @@ def multiscale_eigenpairs(
     t0 = time.perf_counter()
     Gs = problem._levels[S].G
     nS = Gs.shape[0]
-    k_coarse, tol_coarse = min(k + _GUARD, nS), min(tol, 1e-6)
+    # the coarsest vectors are refined on every finer level: level_tol is enough there
+    k_coarse, tol_coarse = min(k + _GUARD, nS), min(tol, level_tol)
     # LAPACK up to 1000 nodes, Lanczos above (10x faster than LAPACK on 2 500-node photo
     # levels). Near one-dimensional levels (a 3 x 200 000 strip) have eigenvalues so clustered
     # that Lanczos crawls, so it gets a restart budget and LAPACK takes over when it runs out.

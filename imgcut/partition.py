@@ -74,6 +74,15 @@ def _first_occurrence_labels(labels: np.ndarray) -> np.ndarray:
     labels = np.asarray(labels).ravel()
     if labels.size == 0:
         return labels.astype(np.int32)
+    if labels.dtype.kind in "iu" and labels.min() >= 0 and labels.max() < 64:
+        # few small labels (a k-way argmax): one pass per label instead of a sort of all n
+        present = np.flatnonzero(np.bincount(labels))
+        first = np.array([int(np.argmax(labels == j)) for j in present])
+        rank = np.zeros(int(present[-1]) + 1, dtype=np.int32)
+        rank[present[np.argsort(first, kind="stable")]] = np.arange(
+            1, present.size + 1, dtype=np.int32
+        )
+        return rank[labels]
     uniq, first, inverse = np.unique(labels, return_index=True, return_inverse=True)
     rank = np.empty(uniq.size, dtype=np.int32)
     rank[np.argsort(first, kind="stable")] = np.arange(1, uniq.size + 1, dtype=np.int32)
@@ -973,7 +982,16 @@ def discretize(
     if k == 1:
         return np.ones(n, dtype=np.int32)
     rng = np.random.default_rng(seed)
-    Xt = _row_normalise(V)
+    sampled = n > DISCRETIZE_SAMPLE
+    if sampled:
+        # The objective is a sum over rows: fit the rotation on a seeded sample of rows,
+        # then label every row once with it (subsampled fitting, as in mini-batch k-means,
+        # Sculley 2010). Only the sample is row-normalised: the final argmax is unchanged by
+        # a positive scale per row, so the full block is never copied.
+        Xt = _row_normalise(V[np.sort(rng.choice(n, DISCRETIZE_SAMPLE, replace=False))])
+    else:
+        Xt = _row_normalise(V)
+    n = Xt.shape[0]
 
     # Yu & Shi 2003, Fig. 2 step 3: initial R from mutually near-orthogonal rows.
     R = np.zeros((k, k))
@@ -985,13 +1003,6 @@ def discretize(
 
     best_obj = -np.inf
     best_labels = None
-    full = Xt
-    if n > DISCRETIZE_SAMPLE:
-        # The objective is a sum over rows: fit the rotation on a seeded sample of rows,
-        # then label every row once with it (subsampled fitting, as in mini-batch k-means,
-        # Sculley 2010).
-        Xt = Xt[np.sort(rng.choice(n, DISCRETIZE_SAMPLE, replace=False))]
-        n = Xt.shape[0]
     ones, rows = np.ones(n), np.arange(n)
     for _ in range(max_iter):
         # Yu & Shi 2003, eq. (12): the discrete X nearest to X~ R
@@ -1005,8 +1016,10 @@ def discretize(
         best_obj, best_labels = obj, labels
         best_R = R
         R = Vt.T @ U.T  # R = U~ U^T (orthogonal Procrustes)
-    if full is not Xt:
-        best_labels = np.argmax(tall_matmul(full, best_R), axis=1)
+    if sampled:  # every row, a block at a time (no n x k product in memory)
+        best_labels = np.empty(V.shape[0], dtype=np.intp)
+        for r0 in range(0, V.shape[0], 1 << 16):
+            best_labels[r0 : r0 + (1 << 16)] = np.argmax(V[r0 : r0 + (1 << 16)] @ best_R, axis=1)
     return _first_occurrence_labels(best_labels)
 
 

@@ -364,3 +364,20 @@ def test_recursive_keeps_dust_out_of_the_region_count():
     # Only dust left to split: asking for more regions cannot make a speck a region.
     h5 = recursive_ncut(W, n_regions=5, min_size=5, max_ncut=0.5, seed=0)
     assert h5.n_regions == 2
+
+
+@pytest.mark.parametrize(
+    "labels",
+    [[3, 3, 0, 5, 0, 3], [0], [7, 7, 7], list(range(63, -1, -1)), [2, 100, 2, 1], [-1, 4, -1]],
+)
+def test_first_occurrence_labels_fast_and_general_paths_agree(labels):
+    # reference written out here: number each distinct value by the position of its first
+    # occurrence (the contract of the k-way partitions: regions 1..K in order of first node)
+    from imgcut.partition import _first_occurrence_labels
+
+    order = {}
+    for v in labels:
+        order.setdefault(v, len(order) + 1)
+    expected = [order[v] for v in labels]
+    got = _first_occurrence_labels(np.array(labels))
+    assert got.dtype == np.int32 and got.tolist() == expected
