@@ -92,7 +92,7 @@ def micrograph(h: int, w: int, seed: int = 0) -> np.ndarray:
     return np.clip(img, 0, 65535).astype(np.uint16)
 
 
-def _run(h, w, tol, maxiter, mode, timeout, blas_threads):
+def _run(h, w, tol, maxiter, mode, timeout, blas_threads, hugepage="numpy"):
     here = os.path.dirname(os.path.abspath(__file__))
     cmd = [
         sys.executable, "-c", _CHILD, str(h), str(w),
@@ -104,6 +104,8 @@ def _run(h, w, tol, maxiter, mode, timeout, blas_threads):
     if blas_threads:
         for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
             env[var] = str(blas_threads)
+    if hugepage == "off":  # NumPy's documented switch, as the imgcut command line sets it
+        env["NUMPY_MADVISE_HUGEPAGE"] = "0"
     try:
         proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)
     except subprocess.TimeoutExpired:
@@ -410,6 +412,13 @@ def main(argv=None) -> int:
         help="BLAS threads per child (0: library default). On a shared, oversubscribed "
         "machine multi-threaded BLAS made the run 2.4x slower (measured at 256x256)",
     )
+    ap.add_argument(
+        "--numpy-hugepage",
+        choices=("numpy", "off"),
+        default="numpy",
+        help="'off': children run with NUMPY_MADVISE_HUGEPAGE=0, as the imgcut command line "
+        "does (docs/performance.md); 'numpy': NumPy's own default",
+    )
     ap.add_argument("--check", action="store_true", help="eigenvalues against LAPACK")
     ap.add_argument("--matmul", action="store_true", help="tall block products, one call vs rows")
     ap.add_argument("--bsds", type=int, default=0, help="quality on this many BSDS val images")
@@ -443,7 +452,10 @@ def main(argv=None) -> int:
         jobs = [(321, 481, "photo")] + jobs
     for h, w, mode in jobs:
         t = time.perf_counter()
-        r = _run(h, w, args.tol, args.maxiter, mode, args.timeout, args.blas_threads)
+        r = _run(
+            h, w, args.tol, args.maxiter, mode, args.timeout, args.blas_threads,
+            args.numpy_hugepage,
+        )  # fmt: skip
         r["wall"] = time.perf_counter() - t
         rows.append(r)
         if args.json:
