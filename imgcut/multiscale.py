@@ -229,8 +229,11 @@ class _Grid:
         g = x.reshape(h, w, m)
         # four strided adds (odd edges: the partial blocks take what they have); much
         # faster than a reduction over two non-contiguous axes or a zero-padded copy
-        s = g[0::2, 0::2].copy()
-        s[: h // 2] += g[1::2, 0::2]
+        if h % 2 == 0:  # the first add makes the new array (one pass fewer than a copy)
+            s = g[0::2, 0::2] + g[1::2, 0::2]
+        else:
+            s = g[0::2, 0::2].copy()
+            s[: h // 2] += g[1::2, 0::2]
         s[:, : w // 2] += g[0::2, 1::2]
         s[: h // 2, : w // 2] += g[1::2, 1::2]
         return s.reshape(hc * wc, m)
