@@ -738,7 +738,14 @@ class _VCycle:
             shape = grid.coarse
         d = np.asarray(G.sum(axis=1)).ravel()
         M = np.diag((1.0 + sigma) * d) - G.toarray()
-        self.bottom = scipy.linalg.cho_factor(M, lower=True)
+        # A node without any weight (all its affinities underflowed to 0) has a zero row:
+        # the identity there keeps the bottom solve defined (it is its own component).
+        empty = M.diagonal() <= 0
+        M[empty, empty] = 1.0
+        try:
+            self.bottom = ("cholesky", scipy.linalg.cho_factor(M, lower=True))
+        except np.linalg.LinAlgError:  # numerically singular: symmetric pseudo-inverse
+            self.bottom = ("pinv", scipy.linalg.pinvh(M))
         self.extra = extra
         self.S = S
         self.pre = 1  # smoothing steps before and after the coarse correction
@@ -764,7 +771,8 @@ class _VCycle:
 
     def __call__(self, s: int, r: np.ndarray) -> np.ndarray:
         if s == self.S + len(self.extra):
-            return scipy.linalg.cho_solve(self.bottom, r)
+            kind, factor = self.bottom
+            return scipy.linalg.cho_solve(factor, r) if kind == "cholesky" else factor @ r
         grid = self.prob._levels[s].grid if s < self.S else self.extra[s - self.S][2]
         dinv = self.inv_diag(s)[:, None]  # l1-Jacobi needs no damping (Baker et al. 2011)
         e = dinv * r

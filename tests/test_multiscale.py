@@ -399,3 +399,17 @@ def test_scale_auto_keeps_thin_strips_single_scale(monkeypatch):
     strip[:, 60:] = 1.0
     res = imgcut.segment(strip, 2, method="kway", radius=2)
     assert res.params["scale_used"] == "single"  # fewer than 16 rows: no coarse levels
+
+
+def test_vcycle_bottom_solve_survives_a_weightless_node():
+    # A coarsest node whose affinities all underflowed to 0 is its own component (one zero
+    # eigenvalue per component, Chung 1997): the bottom solve must stay defined and finite.
+    prob = multiscale_problem(_image(16, 14), levels=2)
+    G = prob._levels[-1].G.tolil()
+    G[0, :] = 0
+    G[:, 0] = 0
+    prob._levels[-1].G = sp.csr_matrix(G)
+    prob._finish()
+    vc = ms._VCycle(prob, 0.01)
+    out = vc(0, np.random.default_rng(0).standard_normal((16 * 14, 3)))
+    assert np.all(np.isfinite(out))
