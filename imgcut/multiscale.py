@@ -1236,10 +1236,6 @@ def multiscale_eigenpairs(
     lam, res = np.zeros(0), np.zeros(0)
     for s in range(S - 1, -1, -1) if m > 0 else ():
         final = s == 0
-        if s < n_relax:
-            # Relaxed levels carry the wanted columns only: a guard vector helps LOBPCG's
-            # convergence, not relaxation, and costs an n x 1 column per block at full size.
-            X = X[:, :m]
         # Every level starts from the relaxed prolongation (on LOBPCG levels too: a better
         # start than the piecewise-constant one, at the cost of a few sparse products).
         X = _compatible_relaxation(problem, s, X, relax_steps, relax_dtype)
