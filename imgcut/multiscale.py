@@ -794,6 +794,15 @@ def _weighted_sq_norms(V: np.ndarray, w: np.ndarray, chunk: int = 1 << 18) -> np
     return out
 
 
+def _weighted_gram(X: np.ndarray, w: np.ndarray, chunk: int = 1 << 16) -> np.ndarray:
+    """``X^T diag(w) X`` a block of rows at a time (no n x m temporary)."""
+    out = np.zeros((X.shape[1], X.shape[1]))
+    for r0 in range(0, X.shape[0], chunk):
+        part = X[r0 : r0 + chunk]
+        out += (part * w[r0 : r0 + chunk, None]).T @ part
+    return out
+
+
 def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int):
     """Ritz pairs of the level-``s`` pencil in ``span(X)`` (constant deflated), lean on memory.
 
@@ -806,11 +815,19 @@ def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int
     one = np.ones((n, 1))
     B1 = prob.apply(s, one, mass=True)[:, 0]
     X -= ((B1 @ X) / float(B1.sum()))[None, :]  # B-deflate the constant (in place)
-    # At most three n x m blocks alive: B X is used for its Gram matrix, dropped, and
-    # recomputed for the Ritz vectors (one more B product instead of a fourth block).
-    BX = prob.apply(s, X, mass=True)
-    GB = X.T @ BX
-    del BX
+    # B X = d * X + P c with c the (block-sized) coarse mass terms, so neither the Gram
+    # matrix nor the residual needs an n x m block for B X: X^T B X is a weighted Gram
+    # matrix plus (P^T X)^T c, and c of the Ritz vectors is c Z (B is linear). At most two
+    # n x m blocks (X and A X) are alive.
+    d = prob._deg[s]
+    grid = prob._levels[s].grid
+    c = None
+    if grid is not None:
+        c = prob._coarse_apply(s + 1, grid.average(X), 0.0, 1.0)
+        c /= grid.counts[:, None]
+    GB = _weighted_gram(X, d)
+    if c is not None:
+        GB += grid.block_sum(X).T @ c
     AX = prob.apply(s, X)
     GA = X.T @ AX
     gw, gv = np.linalg.eigh((GB + GB.T) / 2)
@@ -824,10 +841,12 @@ def _rayleigh_ritz(prob: MultiscaleProblem, s: int, X: np.ndarray, n_wanted: int
     else:  # a dependent direction was dropped: fewer columns
         X = tall_matmul(X, Z)
         AX = tall_matmul(AX, Z)
-    BX = prob.apply(s, X, mass=True)
-    BX *= lam[None, :]
-    AX -= BX  # in place: AX is now the residual block A X - B X diag(lam)
-    del BX
+    # residual block A X - B X diag(lam), formed in AX in place
+    for r0 in range(0, n, 1 << 16):
+        r1 = r0 + (1 << 16)
+        AX[r0:r1] -= (d[r0:r1, None] * X[r0:r1]) * lam[None, :]
+    if c is not None:
+        grid.add_expanded(AX, -((c @ Z) * lam[None, :]))
     inv_dB = np.divide(1.0, dB, out=np.zeros_like(dB), where=dB > 0)
     num = np.sqrt(_weighted_sq_norms(AX, inv_dB))
     den = np.sqrt(_weighted_sq_norms(X, dB))

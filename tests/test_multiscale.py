@@ -413,3 +413,26 @@ def test_vcycle_bottom_solve_survives_a_weightless_node():
     vc = ms._VCycle(prob, 0.01)
     out = vc(0, np.random.default_rng(0).standard_normal((16 * 14, 3)))
     assert np.all(np.isfinite(out))
+
+
+@pytest.mark.parametrize("s", [0, 1, 2])  # 2: the coarsest level, no coarse terms
+def test_rayleigh_ritz_matches_the_dense_pencil(s):
+    # Ritz values, B-orthonormality and residual norms of the lean (block-free) Rayleigh-Ritz
+    # step against the same quantities from the explicit dense pencil (A, B) and LAPACK
+    prob = multiscale_problem(_image(22, 18), levels=3)
+    A, B = _dense_pencil(prob, s)
+    n = A.shape[0]
+    X = np.random.default_rng(3).standard_normal((n, 4))
+    lam, V, res = ms._rayleigh_ritz(prob, s, X.copy(), 4)
+    # reference: the constant B-deflated, then Ritz pairs of (Q^T A Q, Q^T B Q)
+    one = np.ones(n)
+    Xd = X - np.outer(one, (one @ B @ X) / (one @ B @ one))
+    ref = scipy.linalg.eigh(Xd.T @ A @ Xd, Xd.T @ B @ Xd, eigvals_only=True)
+    np.testing.assert_allclose(lam, ref, rtol=1e-9, atol=1e-14)
+    np.testing.assert_allclose(V.T @ B @ V, np.eye(4), atol=1e-9)
+    dB = np.diag(B)
+    R = A @ V - (B @ V) * lam
+    expected = np.linalg.norm(R / np.sqrt(dB)[:, None], axis=0) / np.linalg.norm(
+        V * np.sqrt(dB)[:, None], axis=0
+    )
+    np.testing.assert_allclose(res, expected, rtol=1e-8)
