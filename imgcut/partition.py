@@ -963,8 +963,9 @@ def discretize(
     * SVD ``X^T X~ = U Omega U~^T`` and ``R = U~ U^T`` -- orthogonal Procrustes (step 5),
 
     and stop when the objective ``trace(Omega)`` stops increasing (it never decreases).
-    Above ``DISCRETIZE_SAMPLE`` nodes the alternation runs on that many rows drawn with
-    ``seed`` and the final rotation labels every node.
+    Above ``DISCRETIZE_SAMPLE`` nodes the initial rotation and the alternation use that many
+    rows drawn with ``seed``, and the final rotation labels every node (``argmax`` of
+    ``Z R`` a block of rows at a time: row normalisation does not change the argmax).
 
     References
     ----------
