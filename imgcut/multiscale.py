@@ -226,17 +226,26 @@ class _Grid:
         h, w = self.shape
         hc, wc = self.coarse
         m = x.shape[1]
-        g = x.reshape(h, w, m)
-        # four strided adds (odd edges: the partial blocks take what they have); much
-        # faster than a reduction over two non-contiguous axes or a zero-padded copy
-        if h % 2 == 0:  # the first add makes the new array (one pass fewer than a copy)
-            s = g[0::2, 0::2] + g[1::2, 0::2]
-        else:
-            s = g[0::2, 0::2].copy()
-            s[: h // 2] += g[1::2, 0::2]
-        s[:, : w // 2] += g[0::2, 1::2]
-        s[: h // 2, : w // 2] += g[1::2, 1::2]
-        return s.reshape(hc * wc, m)
+        # pairs of image rows first (whole contiguous rows: long inner loops), then pairs of
+        # columns; an odd last row or column is its own partial block. A band of block rows
+        # at a time keeps the temporaries near 2^16 x m values.
+        g = x.reshape(h, w * m)
+        out = np.empty((hc, wc, m), dtype=x.dtype)
+        step = max(1, (1 << 16) // w)
+        for c0 in range(0, hc, step):
+            c1 = min(hc, c0 + step)
+            even = g[2 * c0 : 2 * c1 : 2]
+            odd = g[2 * c0 + 1 : 2 * c1 : 2]
+            r = even.copy()
+            r[: odd.shape[0]] += odd
+            r3 = r.reshape(c1 - c0, w, m)
+            band = out[c0:c1]
+            if w % 2:
+                band[...] = r3[:, 0::2]
+                band[:, : w // 2] += r3[:, 1::2]
+            else:
+                np.add(r3[:, 0::2], r3[:, 1::2], out=band)
+        return out.reshape(hc * wc, m)
 
     def average(self, x: np.ndarray) -> np.ndarray:
         """``C x``: block means (in the dtype of ``x``)."""
@@ -254,37 +263,25 @@ class _Grid:
 
     def _put(self, x: np.ndarray, z: np.ndarray, add: bool) -> None:
         h, w = self.shape
-        hc, wc = self.coarse
+        hc, _ = self.coarse
         m = x.shape[1]
-        if h % 2 == 0 and w % 2 == 0:  # one broadcast operation (1.6-1.9x faster)
-            blocks = x.reshape(hc, 2, wc, 2, m)
-            src = z.reshape(hc, 1, wc, 1, m)
+        # each block value copied to its two columns once (a half-size row block), then
+        # added to (or written into) both image rows of the block as whole contiguous rows:
+        # 2-5x faster on odd grids than 2 x 2 broadcasting with its 8-element inner loops
+        g = x.reshape(h, w * m)
+        zc = z.reshape(hc, -1, m)
+        step = max(1, (1 << 16) // w)  # block rows per pass: temporaries of ~2^16 x m values
+        for c0 in range(0, hc, step):
+            c1 = min(hc, c0 + step)
+            zw = np.repeat(zc[c0:c1], 2, axis=1)[:, :w].reshape(c1 - c0, w * m)
+            even = g[2 * c0 : 2 * c1 : 2]
+            odd = g[2 * c0 + 1 : 2 * c1 : 2]  # one row fewer at an odd last row
             if add:
-                blocks += src
+                even += zw
+                odd += zw[: odd.shape[0]]
             else:
-                blocks[...] = src
-            return
-        g = x.reshape(h, w, m)
-        zc = z.reshape(hc, wc, m)
-        he, we = h // 2, w // 2
-        # the complete 2 x 2 blocks as one strided view (x is C-contiguous): one broadcast
-        # operation, then the odd last row and column
-        st = g.strides
-        blocks = np.lib.stride_tricks.as_strided(
-            g, shape=(he, 2, we, 2, m), strides=(2 * st[0], st[0], 2 * st[1], st[1], st[2])
-        )
-        parts = [(blocks, zc[:he, :we, None, :][:, None])]
-        if h % 2:
-            parts.append((g[h - 1, : 2 * we].reshape(we, 2, m), zc[he, :we, None, :]))
-        if w % 2:
-            parts.append((g[: 2 * he, w - 1].reshape(he, 2, m), zc[:he, we, None, :]))
-        if h % 2 and w % 2:
-            parts.append((g[h - 1, w - 1], zc[he, we]))
-        for dst, src in parts:
-            if add:
-                dst += src
-            else:
-                dst[...] = src
+                even[...] = zw
+                odd[...] = zw[: odd.shape[0]]
 
     def add_expanded(self, x: np.ndarray, z: np.ndarray) -> None:
         """``x += P z`` in place (no full-size temporary)."""
