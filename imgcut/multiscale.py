@@ -22,8 +22,10 @@ graph alone, on real image edges.
 The solver is coarsen–solve–refine (nested iteration): the Galerkin projection of the pencil
 onto piecewise-constant functions of the coarsest level (prolongation ``P``, ``C P = I``) is an
 ordinary graph normalized cut, solved with :func:`imgcut.spectral.laplacian_eigenpairs`; its
-eigenvectors are prolonged one level at a time and refined by a few block LOBPCG iterations
-(Knyazev 2001) on that level's Galerkin pencil, ending on the full-resolution pencil.
+eigenvectors are prolonged one level at a time, placed inside the blocks by compatible
+relaxation, and refined by a Rayleigh-Ritz step (large levels) or a few block LOBPCG
+iterations (Knyazev 2001) on that level's Galerkin pencil, ending on the full-resolution
+pencil.
 
 Public names: :func:`multiscale_eigenpairs`, :func:`prolongation`, :func:`restriction`,
 :func:`coarsen_features`, :func:`galerkin_graph`, :class:`MultiscaleProblem`,
@@ -1099,7 +1101,8 @@ def multiscale_eigenpairs(
         On the full-resolution level LOBPCG still follows when the Ritz residuals miss
         ``tol`` and ``maxiter > 0``.
     relax_steps : int, default 8
-        Jacobi steps per relaxed level.
+        Jacobi steps of the compatible relaxation that starts every level (the LOBPCG
+        levels too: it is a better start than the piecewise-constant prolongation).
 
     Returns
     -------
