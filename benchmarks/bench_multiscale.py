@@ -203,6 +203,58 @@ def matmul_check(n: int = 4_000_000, m: int = 7) -> None:
         print(f"{name:>12} ({n} x {m}) @ ({m} x {m}): " + ", ".join(f"{v:.3f}" for v in ts) + " s")
 
 
+def transfer_check(sizes=((481, 321), (2048, 2048)), m: int = 8, repeats: int = 5) -> None:
+    """Grid transfers and Galerkin aggregation against the plain sparse-matrix products.
+
+    Same run, same data: ``_Grid.block_sum`` / ``add_expanded`` against ``P.T @ x`` /
+    ``x + P @ z`` with ``P`` from :func:`imgcut.multiscale.prolongation`, and
+    :func:`imgcut.multiscale.galerkin_graph` against ``P.T @ W @ P`` on the radius-1.5 graph
+    of the synthetic field; prints best-of-``repeats`` times, ratios and the largest
+    difference.
+    """
+    from functools import partial
+
+    from imgcut.features import compute_features
+    from imgcut.graph import affinity_graph
+    from imgcut.multiscale import _Grid, galerkin_graph, prolongation
+
+    def best(f):
+        ts = []
+        for _ in range(repeats):
+            t = time.perf_counter()
+            out = f()
+            ts.append(time.perf_counter() - t)
+        return min(ts), out
+
+    for h, w in sizes:
+        grid, P = _Grid((h, w)), prolongation((h, w), 2).tocsr()
+        PT = P.T.tocsr()
+        rng = np.random.default_rng(0)
+        x = rng.standard_normal((h * w, m))
+        z = rng.standard_normal((P.shape[1], m))
+        W = affinity_graph(compute_features(micrograph(h, w)), radius=1.5).weights
+
+        def expand(x=x, z=z, grid=grid):
+            y = x.copy()
+            grid.add_expanded(y, z)
+            return y
+
+        rows = [
+            ("block sum P^T x", partial(grid.block_sum, x), partial(PT.__matmul__, x)),
+            ("expand x + P z", expand, lambda x=x, z=z, P=P: x + P @ z),
+            ("Galerkin P^T W P", partial(galerkin_graph, W, (h, w)),
+             lambda W=W, P=P, PT=PT: PT @ W @ P),
+        ]  # fmt: skip
+        for name, ours, ref in rows:
+            t_ours, a = best(ours)
+            t_ref, b = best(ref)
+            diff = abs(a - b).max() if hasattr(a, "tocsr") else np.abs(a - b).max()
+            print(
+                f"{h}x{w} {name:>18}: imgcut {t_ours * 1e3:8.2f} ms, sparse product "
+                f"{t_ref * 1e3:8.2f} ms, ratio {t_ref / t_ours:5.1f}x, max difference {diff:.1e}"
+            )
+
+
 def reference_check(size: int = 40) -> None:
     """Multiscale eigenvalues against LAPACK's generalised eigh on the explicit pencil."""
     import scipy.linalg
@@ -422,6 +474,9 @@ def main(argv=None) -> int:
     )
     ap.add_argument("--check", action="store_true", help="eigenvalues against LAPACK")
     ap.add_argument("--matmul", action="store_true", help="tall block products, one call vs rows")
+    ap.add_argument(
+        "--transfers", action="store_true", help="grid transfers and aggregation vs sparse products"
+    )
     ap.add_argument("--bsds", type=int, default=0, help="quality on this many BSDS val images")
     ap.add_argument("--cache", default=None, help="folder for the single-scale BSDS labels")
     ap.add_argument(
@@ -439,6 +494,9 @@ def main(argv=None) -> int:
         return 0
     if args.matmul:
         matmul_check()
+        return 0
+    if args.transfers:
+        transfer_check()
         return 0
     sizes = [tuple(int(v) for v in s.split("x")) for s in args.sizes.split(",")]
     rows = []

@@ -269,7 +269,9 @@ class _Grid:
         m = x.shape[1]
         # each block value copied to its two columns once (a half-size row block), then
         # added to (or written into) both image rows of the block as whole contiguous rows:
-        # 2-5x faster on odd grids than 2 x 2 broadcasting with its 8-element inner loops
+        # 2-5x faster on odd grids than 2 x 2 broadcasting with its 8-element inner loops.
+        # (A prebuilt CSR P would be no faster for ``x += P z``, which it cannot do in place,
+        # and costs 12 bytes per pixel per level; ``bench_multiscale.py --transfers``.)
         g = x.reshape(h, w * m)
         zc = z.reshape(hc, -1, m)
         step = max(1, (1 << 16) // w)  # block rows per pass: temporaries of ~2^16 x m values
@@ -386,9 +388,9 @@ def galerkin_graph(W, shape, *, chunk_rows: int = 1 << 22) -> sp.csr_matrix:
     # Block index of every pixel. Each chunk of an even number of image rows gives complete,
     # disjoint rows of the result: its columns are mapped to blocks in place of a product
     # with P (duplicates are summed by the product that follows), and its rows are summed
-    # by the sparse product with that chunk's part of P^T. 8x faster than P^T (W P) at
-    # 2048 x 2048 (one sparse-sparse product with 4 ones per row instead of two general
-    # ones and their format conversions).
+    # by the sparse product with that chunk's part of P^T. 8x faster at 2048 x 2048 than the
+    # row-sliced P^T (W P) it replaced (slices and format conversions); about as fast as
+    # P^T W P with a prebuilt CSR P^T, without building P (bench_multiscale.py --transfers).
     ci = (np.arange(h) // 2)[:, None] * wc + (np.arange(w) // 2)[None, :]
     ci = ci.ravel().astype(W.indices.dtype)
     step = max(2, (chunk_rows // w) // 2 * 2)
