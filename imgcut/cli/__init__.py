@@ -13,6 +13,15 @@ def _root() -> None:
     """Segment images by normalized cuts; export label images, overlays and scores."""
 
 
+def _numpy_multiarray():
+    """NumPy's ``multiarray`` module (``numpy._core`` from NumPy 2, ``numpy.core`` before)."""
+    try:
+        from numpy._core import multiarray
+    except ImportError:  # pragma: no cover - NumPy 1.x
+        from numpy.core import multiarray
+    return multiarray
+
+
 def _no_numpy_hugepages() -> bool:
     """Stop NumPy from marking large arrays for transparent huge pages, in this process.
 
@@ -31,10 +40,7 @@ def _no_numpy_hugepages() -> bool:
     """
     if "NUMPY_MADVISE_HUGEPAGE" in os.environ:
         return False
-    try:
-        from numpy._core import multiarray
-    except ImportError:  # pragma: no cover - other NumPy layouts
-        return False
+    multiarray = _numpy_multiarray()
     setter = getattr(multiarray, "_set_madvise_hugepage", None)
     if setter is None:  # pragma: no cover - a NumPy without the switch
         return False
