@@ -32,6 +32,7 @@ from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
 from imgcut.cues import combine_cues, local_cues, quantised_channels
+from imgcut.ensemble import ensemble_hierarchy, member_presets
 from imgcut.hierarchy import merge_regions, oversegment
 from imgcut.presets import get_preset
 from imgcut.spectral_boundary import _contrast_normalise
@@ -133,30 +134,56 @@ def _sweep_scores(h, tables, levels):
     return np.array(res)
 
 
-def evaluate(ids, preset, cache: Path, levels) -> dict:
-    """ODS/OIS region scores of one preset over train images (one hierarchy per image)."""
-    rows = []
-    for image_id in ids:
-        tensors, names, segs, tex = _cues(image_id, cache)
-        local, strength = _contrast_normalise(_combine(tensors, names, preset), preset)
-        base = oversegment(strength, smooth=preset.watershed_smooth)
-        features = None
-        if preset.similarity_weight > 0:
-            if tex is None:
-                raise SystemExit("the cue cache predates texton maps; rebuild it")
-            img = np.asarray(Image.open(DATA / "train" / "images" / f"{image_id}.jpg"))
-            features = quantised_channels(
-                img, tex, colour_space=preset.colour_space, n_bins=preset.similarity_bins
-            )
-        h = merge_regions(
-            base,
-            strength,
-            tensor=local if preset.oriented else None,
-            features=features,
-            **preset.merge_options(),
+def _single(image_id, tensors, names, tex, preset):
+    """The preset's hierarchy of one image from its cached cues (as ``image_hierarchy``)."""
+    local, strength = _contrast_normalise(_combine(tensors, names, preset), preset)
+    base = oversegment(strength, smooth=preset.watershed_smooth)
+    features = None
+    if preset.similarity_weight > 0:
+        if tex is None:
+            raise SystemExit("the cue cache predates texton maps; rebuild it")
+        img = np.asarray(Image.open(DATA / "train" / "images" / f"{image_id}.jpg"))
+        features = quantised_channels(
+            img, tex, colour_space=preset.colour_space, n_bins=preset.similarity_bins
         )
-        rows.append(_sweep_scores(h, _tables(h.base_labels, segs), levels))
-    r = np.array(rows)  # (images, levels, 4)
+    return merge_regions(
+        base,
+        strength,
+        tensor=local if preset.oriented else None,
+        features=features,
+        **preset.merge_options(),
+    )
+
+
+def hierarchy(image_id, preset, cache: Path):
+    """(hierarchy, human segmentations) of one train image from the cue cache.
+
+    An ensemble preset (non-empty ``ensemble``) builds every member's hierarchy from the same
+    cached cues and combines their contour maps as :func:`imgcut.ensemble.ensemble_hierarchy`.
+    """
+    tensors, names, segs, tex = _cues(image_id, cache)
+    return hierarchy_from_cues(image_id, tensors, names, tex, preset), segs
+
+
+def hierarchy_from_cues(image_id, tensors, names, tex, preset):
+    """The hierarchy stage of ``image_hierarchy`` (single or ensemble) on cached cues."""
+    members = member_presets(preset)
+    if not members:
+        return _single(image_id, tensors, names, tex, preset)
+    maps = [_single(image_id, tensors, names, tex, m).ultrametric_map() for m, _ in members]
+    return ensemble_hierarchy(
+        maps,
+        [ref for _, ref in members],
+        level=preset.ensemble_level,
+        dilation=preset.ensemble_dilation,
+        smooth=preset.watershed_smooth,
+        default_level=preset.default_level,
+    )
+
+
+def ods_scores(r, levels) -> dict:
+    """ODS/OIS region scores from per-image sweep rows ``r`` (images, levels, 4)."""
+    r = np.asarray(r)
     cov = r[..., 0].sum(0) / r[..., 1].sum(0)
     pri, voi = r[..., 2].mean(0), r[..., 3].mean(0)
     return {
@@ -168,6 +195,15 @@ def evaluate(ids, preset, cache: Path, levels) -> dict:
         "voi_level": float(levels[voi.argmin()]),
         "ois_covering": float((r[..., 0] / r[..., 1]).max(1).mean()),
     }
+
+
+def evaluate(ids, preset, cache: Path, levels) -> dict:
+    """ODS/OIS region scores of one preset over train images (one hierarchy per image)."""
+    rows = []
+    for image_id in ids:
+        h, segs = hierarchy(image_id, preset, cache)
+        rows.append(_sweep_scores(h, _tables(h.base_labels, segs), levels))
+    return ods_scores(rows, levels)
 
 
 def main(argv=None):

@@ -610,7 +610,9 @@ def image_hierarchy(
     The pipeline of Arbelaez et al. (2011): multiscale local cues (and optionally the spectral
     term, :func:`imgcut.spectral_boundary.global_boundary`), an over-segmentation by watershed
     and the ultrametric from greedy merging (:func:`merge_regions`).  With the preset's
-    ``oriented`` flag each border is measured across its own orientation.
+    ``oriented`` flag each border is measured across its own orientation.  A preset with a
+    non-empty ``ensemble`` builds one such hierarchy per member from shared cues and returns
+    the hierarchy of their averaged contour maps (:func:`imgcut.ensemble.ensemble_image_hierarchy`).
 
     Examples
     --------
@@ -620,13 +622,22 @@ def image_hierarchy(
     >>> int(h.labels_at(0.5).max())
     2
     """
-    from dataclasses import replace
-
     from .presets import get_preset
     from .spectral_boundary import global_boundary
 
     p = get_preset(preset)
+    if p.ensemble:  # several merge-score variants on shared cues, one hierarchy from their maps
+        from .ensemble import ensemble_image_hierarchy
+
+        return ensemble_image_hierarchy(image, preset=p, seed=seed)
     gb = global_boundary(image, preset=p, seed=seed)
+    return _hierarchy_from_boundary(image, gb, p)
+
+
+def _hierarchy_from_boundary(image, gb, p) -> RegionHierarchy:
+    """Watershed and greedy merging of a preset's global boundary (``image_hierarchy``'s tail)."""
+    from dataclasses import replace
+
     base = oversegment(gb.strength, smooth=p.watershed_smooth)
     features = None
     if p.similarity_weight > 0:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, replace
 
-__all__ = ["BoundaryPreset", "PRESETS", "get_preset"]
+__all__ = ["BoundaryPreset", "PRESETS", "PHOTO_ENSEMBLE", "get_preset"]
 
 
 @dataclass(frozen=True)
@@ -76,6 +76,16 @@ class BoundaryPreset:
         optimal dataset scale, ODS); used when the caller asks for no particular level.
     level_sweep : tuple of float
         Levels swept for benchmarks (one shared sweep for every image).
+    ensemble : tuple of (tuple of (str, value), float)
+        Hierarchy ensemble (:mod:`imgcut.ensemble`): one ``(overrides, reference_level)`` pair
+        per member, the overrides as ``(field, value)`` pairs applied to this preset (cue
+        fields excluded: the members share the cues).  Each member's contour map is divided
+        by its reference level and the mean of the maps gives one hierarchy.  Empty: off
+        (a single hierarchy from this preset's own merge score).
+    ensemble_level : float
+        Level of the ensemble's hierarchy at which every member's reference level lands.
+    ensemble_dilation : int
+        Side of the square grey dilation of each member's map before averaging (odd).
     """
 
     name: str
@@ -110,6 +120,9 @@ class BoundaryPreset:
     oriented: bool = True
     default_level: float = 0.65
     level_sweep: tuple[float, ...] = tuple(round(0.05 * i, 2) for i in range(6, 19))
+    ensemble: tuple[tuple[tuple[tuple[str, object], ...], float], ...] = ()
+    ensemble_level: float = 0.5
+    ensemble_dilation: int = 3
 
     def weights(self) -> dict[str, float]:
         """Cue weights as a dict for :func:`imgcut.cues.combine_cues`.
@@ -196,6 +209,20 @@ _PHOTO = BoundaryPreset(
     level_sweep=tuple(round(0.025 * i, 3) for i in range(12, 37)),
 )
 
+# The hierarchy ensemble of the "photo" preset (imgcut.ensemble; session 5 of
+# docs/benchmarks.md): five variants of the merge stage on the same cues, each the photo preset
+# with one change that scored within ~0.003 of it on the fixed train-100 subset (sessions 3-4):
+# contrast power 0.75, plain mean border strength (p = 1), product mix with w = 0.05, sum mix
+# with w = 0.35.  Reference level of each = its own best-PRI level (ODS, sweep step 0.025) on
+# that train-100 subset: 0.500, 0.525, 0.500, 0.550, 0.450; every reference maps to level 0.5.
+PHOTO_ENSEMBLE: tuple = (
+    ((), 0.5),
+    ((("contrast_power", 0.75),), 0.525),
+    ((("strength_power", 1.0),), 0.5),
+    ((("similarity_mix", "product"), ("similarity_weight", 0.05)), 0.55),
+    ((("similarity_weight", 0.35),), 0.45),
+)
+
 # Hand-set for microscopy, not tuned; keeps the plain mean-strength merge of the first version.
 _FLUORESCENCE = replace(
     _PHOTO,
@@ -209,6 +236,7 @@ _FLUORESCENCE = replace(
     similarity_weight=0.0,
     default_level=0.65,
     level_sweep=tuple(round(0.05 * i, 2) for i in range(6, 19)),
+    ensemble=(),
 )
 
 PRESETS: dict[str, BoundaryPreset] = {p.name: p for p in (_PHOTO, _FLUORESCENCE)}

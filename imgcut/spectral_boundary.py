@@ -295,19 +295,40 @@ def global_boundary(
     """
     import time
 
-    from .cues import combine_cues, local_cues
+    from .cues import local_cues
     from .presets import get_preset
 
     p = get_preset(preset)
+    _check_contrast(p)
+    rng = np.random.default_rng(seed)
+    t0 = time.perf_counter()
+    cues = local_cues(image, seed=rng, **p.cue_options())
+    return _boundary_from_cues(cues, p, rng, t0)
+
+
+def _check_contrast(p) -> None:
+    """ValueError unless the preset's contrast-normalisation fields are valid."""
     if p.contrast_power < 0 or not 0 < p.contrast_percentile <= 100 or p.contrast_reference <= 0:
         raise ValueError(
             "contrast normalisation needs contrast_power >= 0, contrast_percentile in (0, 100] "
             f"and contrast_reference > 0; got {p.contrast_power}, {p.contrast_percentile}, "
             f"{p.contrast_reference}"
         )
-    rng = np.random.default_rng(seed)
-    t0 = time.perf_counter()
-    cues = local_cues(image, seed=rng, **p.cue_options())
+
+
+def _boundary_from_cues(cues, p, rng: np.random.Generator, t0: float | None = None):
+    """The part of :func:`global_boundary` after the local cues, for cues already computed.
+
+    Presets that differ only in cue weights, contrast normalisation, spectral term or merge
+    score share one :class:`imgcut.cues.CueTensors` (used by :mod:`imgcut.ensemble`).
+    """
+    import time
+
+    from .cues import combine_cues
+
+    _check_contrast(p)
+    if t0 is None:
+        t0 = time.perf_counter()
     local = combine_cues(cues, p.weights())
     local, local_strength = _contrast_normalise(local, p)
     t1 = time.perf_counter()

@@ -108,3 +108,16 @@ def test_fluorescence_keeps_the_plain_mean_merge():
     p = presets.PRESETS["fluorescence"]
     assert (p.size_scale, p.strength_power, p.min_area, p.contrast_power) == (0.0, 1.0, 0, 0.0)
     assert p.similarity_weight == 0.0  # no region-appearance term (not tuned on microscopy)
+
+
+def test_presets_with_an_ensemble_stay_hashable_printable_and_round_trip():
+    # The ensemble field is nested tuples, so a preset stays a frozen, hashable value: usable
+    # as a cache key, printed in run records, rebuilt from its dict.
+    p = presets.get_preset("photo", ensemble=presets.PHOTO_ENSEMBLE)
+    assert hash(p) == hash(presets.get_preset("photo", ensemble=presets.PHOTO_ENSEMBLE))
+    assert p != presets.get_preset("photo", ensemble=())
+    assert "contrast_power', 0.75" in repr(p)
+    assert presets.BoundaryPreset(**p.as_dict()) == p
+    for q in presets.PRESETS.values():
+        hash(q)
+    assert presets.PRESETS["fluorescence"].ensemble == ()
