@@ -6,7 +6,8 @@ overriding ``"photo"`` (``"ensemble": "photo"`` stands for :data:`imgcut.presets
 All configurations run in one process on the same images, interleaved per image (the order
 rotates), from the cue cache of ``tune_bsds.py``, so the time per image is that of the hierarchy
 stage alone (contrast normalisation, watershed, merging, and for an ensemble every member plus
-the final merge).
+the final merge).  ``--end-to-end N`` instead times the whole ``image_hierarchy`` (cues
+included) of N images per configuration, again interleaved.
 
 Each hierarchy is scored at the union of two level sweeps over 0.300 … 0.900: the preset's
 ``level_sweep`` (step 0.025) and a fine sweep (step 0.01).  Region measures (covering, PRI, VoI)
@@ -71,6 +72,29 @@ def _summary(reg, fb, exact, levels, grid, tm) -> dict:
     return s
 
 
+def _end_to_end(ids, configs, n_images, out):
+    """Median CPU time of the whole ``image_hierarchy`` per image, configurations interleaved."""
+    from imgcut.hierarchy import image_hierarchy
+
+    pick = ids[:: max(1, len(ids) // n_images)][:n_images]
+    names = list(configs)
+    tm = {k: [] for k in names}
+    for n, image_id in enumerate(pick):
+        img, _, _ = B._load("train", image_id)
+        for k in names[n % len(names) :] + names[: n % len(names)]:
+            c0 = time.process_time()
+            image_hierarchy(img, preset=configs[k], seed=0)
+            tm[k].append(time.process_time() - c0)
+    base = np.median(tm[names[0]])
+    res = {k: {"cpu_s_median": float(np.median(v)), "cpu_s": v} for k, v in tm.items()}
+    with open(out, "w") as fh:
+        json.dump({"n_images": len(pick), "ids": list(pick), "results": res}, fh, indent=1)
+    print(f"image_hierarchy CPU time per image, {len(pick)} train images, median")
+    for k in names:
+        m = res[k]["cpu_s_median"]
+        print(f"  {k:12s} {m:.3f} s ({m / base:.2f}x)")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--cache", required=True, help="cue cache folder of tune_bsds.py")
@@ -79,6 +103,13 @@ def main(argv=None):
     ap.add_argument("--limit", type=int, default=0, help="first N images (development)")
     ap.add_argument("--exact", type=int, default=3, help="exact-matched levels per sweep")
     ap.add_argument("--out", required=True, help="JSON file for the results")
+    ap.add_argument(
+        "--end-to-end",
+        type=int,
+        default=0,
+        help="only time image_hierarchy (cues included, no cache) on N train images spread "
+        "over the split, all configurations interleaved; no scores",
+    )
     args = ap.parse_args(argv)
     cache = Path(args.cache)
     configs = {k: _preset(v) for k, v in json.loads(args.configs).items()}
@@ -87,6 +118,9 @@ def main(argv=None):
         ids = sorted(np.random.default_rng(12345).choice(ids, args.subset, replace=False))
     if args.limit:
         ids = ids[: args.limit]
+    if args.end_to_end:
+        _end_to_end(ids, configs, args.end_to_end, args.out)
+        return
     coarse = np.round(np.arange(0.3, 0.9 + 1e-9, 0.025), 3)
     fine = np.round(np.arange(0.3, 0.9 + 1e-9, 0.01), 3)
     levels = np.unique(np.concatenate([coarse, fine]))

@@ -229,6 +229,21 @@ def ensemble_hierarchy(
     return replace(h, boundary=mean_map, default_level=default_level)
 
 
+def _boundary_key(p) -> tuple:
+    """The preset fields that decide the boundary map computed from shared cues."""
+    return (
+        p.cue_weights,
+        p.scale_weights,
+        p.contrast_percentile,
+        p.contrast_power,
+        p.contrast_reference,
+        p.spectral_weight,
+        p.spectral_vectors,
+        p.spectral_radius,
+        p.spectral_downsample,
+    )
+
+
 def ensemble_image_hierarchy(
     image: np.ndarray,
     *,
@@ -262,7 +277,8 @@ def ensemble_image_hierarchy(
     The local cues (the expensive part) are computed once; every member re-combines them with
     its weights and contrast normalisation and runs its own watershed and greedy merging
     (:func:`imgcut.hierarchy.image_hierarchy` without the cues), so the cost over a single
-    hierarchy is about one merge stage per member plus one final merge.
+    hierarchy is about one merge stage per member plus one final merge.  Members with the
+    same boundary map share it, its watershed and the region channels.
 
     Examples
     --------
@@ -273,7 +289,7 @@ def ensemble_image_hierarchy(
     >>> int(h.labels_at().max())
     2
     """
-    from .cues import local_cues
+    from .cues import local_cues, quantised_channels
     from .hierarchy import _hierarchy_from_boundary
     from .presets import get_preset
     from .spectral_boundary import _boundary_from_cues
@@ -284,10 +300,29 @@ def ensemble_image_hierarchy(
         raise ValueError(f"preset {p.name!r} has no ensemble members (its ensemble is empty)")
     rng = np.random.default_rng(seed)
     cues = local_cues(image, seed=rng, **p.cue_options())
+    # members whose boundary map (or watershed, or region channels) cannot differ share it
+    boundaries: dict = {}
+    bases: dict = {}
+    channels: dict = {}
     maps = []
     for member, _ in members:
-        gb = _boundary_from_cues(cues, member, rng)
-        maps.append(_hierarchy_from_boundary(image, gb, member).ultrametric_map())
+        key = _boundary_key(member)
+        if key not in boundaries:
+            boundaries[key] = _boundary_from_cues(cues, member, rng)
+        gb = boundaries[key]
+        wkey = (key, member.watershed_smooth)
+        if wkey not in bases:
+            bases[wkey] = oversegment(gb.strength, smooth=member.watershed_smooth)
+        features = None
+        if member.similarity_weight > 0:
+            ckey = (member.colour_space, member.similarity_bins)
+            if ckey not in channels:
+                channels[ckey] = quantised_channels(
+                    image, gb.texton_labels, colour_space=ckey[0], n_bins=ckey[1]
+                )
+            features = channels[ckey]
+        h = _hierarchy_from_boundary(image, gb, member, base=bases[wkey], features=features)
+        maps.append(h.ultrametric_map())
     return ensemble_hierarchy(
         maps,
         [ref for _, ref in members],

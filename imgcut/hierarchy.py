@@ -634,13 +634,19 @@ def image_hierarchy(
     return _hierarchy_from_boundary(image, gb, p)
 
 
-def _hierarchy_from_boundary(image, gb, p) -> RegionHierarchy:
-    """Watershed and greedy merging of a preset's global boundary (``image_hierarchy``'s tail)."""
+def _hierarchy_from_boundary(image, gb, p, base=None, features=None) -> RegionHierarchy:
+    """Watershed and greedy merging of a preset's global boundary (``image_hierarchy``'s tail).
+
+    ``base`` and ``features`` may be passed in when already computed for the same strength map
+    and channels (ensemble members share them).
+    """
     from dataclasses import replace
 
-    base = oversegment(gb.strength, smooth=p.watershed_smooth)
-    features = None
-    if p.similarity_weight > 0:
+    if base is None:
+        base = oversegment(gb.strength, smooth=p.watershed_smooth)
+    if p.similarity_weight <= 0:
+        features = None
+    elif features is None:
         from .cues import quantised_channels
 
         features = quantised_channels(

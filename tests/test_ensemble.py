@@ -164,3 +164,20 @@ def test_ensemble_pipeline_on_a_synthetic_photo_is_deterministic():
     via = hierarchy.image_hierarchy(img, preset=p, seed=0)
     np.testing.assert_array_equal(via.edge_levels, h.edge_levels)
     np.testing.assert_array_equal(via.labels_at(), lab)
+
+
+def test_shared_cues_give_the_members_own_hierarchies():
+    # Sharing the cues, boundary maps, watershed and channels between members must not change
+    # anything: the ensemble equals the mean of each member's own image_hierarchy map.
+    rng = np.random.default_rng(3)
+    img = np.clip(rng.normal(0.5, 0.05, (40, 56, 3)), 0, 1)
+    img[:, 28:] += (0.3, -0.2, 0.1)
+    img[20:, :20] -= 0.25
+    img = np.clip(img, 0, 1)
+    p = get_preset("photo", ensemble=PHOTO_ENSEMBLE)
+    members = ensemble.member_presets(p)
+    own = [hierarchy.image_hierarchy(img, preset=m, seed=0).ultrametric_map() for m, _ in members]
+    expected = ensemble.ensemble_hierarchy(own, [r for _, r in members])
+    h = ensemble.ensemble_image_hierarchy(img, preset=p, seed=0)
+    np.testing.assert_array_equal(h.boundary, expected.boundary)
+    np.testing.assert_array_equal(h.edge_levels, expected.edge_levels)

@@ -115,7 +115,9 @@ def test_auto_on_colour_runs_boundary_over_the_preset_sweep(tmp_path, monkeypatc
     for im in res.images:
         assert im.counts == PHOTO_SWEEP
         assert all(a >= b for a, b in zip(im.n_regions, im.n_regions[1:], strict=False))
-        assert im.n_regions[0] == 3 and im.n_regions[-1] == 1  # the blocks, then one
+        # the blocks, then one; the photo preset's hierarchy ensemble (imgcut.ensemble) keeps
+        # a 115-px corner piece of image 0 up to level 0.31, just above the sweep's first level
+        assert im.n_regions[0] in (3, 4) and im.n_regions[1] == 3 and im.n_regions[-1] == 1
         labs = [im.label_image(k) for k in range(len(PHOTO_SWEEP))]
         assert all(_is_refinement(f, c) for f, c in zip(labs, labs[1:], strict=False))
     # the scores are those of the stored label images: covering against its definition,

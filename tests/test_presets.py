@@ -73,7 +73,7 @@ def test_merge_fields_reach_the_hierarchy():
     rng = np.random.default_rng(3)
     img = rng.random((32, 40, 3))
     img[:, 20:] += 0.5
-    p = presets.get_preset("photo")
+    p = presets.get_preset("photo", ensemble=())  # one hierarchy (the ensemble: test_ensemble)
     assert p.size_scale > 0 and p.strength_power != 1.0  # the fitted merge score is on
     assert p.similarity_weight > 0  # and the region-appearance term
     img = np.clip(img / 1.5, 0, 1)
