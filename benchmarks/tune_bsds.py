@@ -14,8 +14,10 @@ Usage::
         --configs '[{}, {"strength_power": 1.0, "size_scale": 0.0, "min_area": 0}]'
 
 Each configuration is a dict of :class:`imgcut.presets.BoundaryPreset` fields overriding the
-``--preset``; the output is one line per configuration with the ODS covering, PRI and VoI
-(each at its own best level) and the mean of the per-image best coverings (OIS).
+``--preset`` (the ``"photo"`` preset is a hierarchy ensemble since session 5; ``{"ensemble":
+[]}`` gives its single hierarchy; JSON lists of members become the preset's tuples).  The
+output is one line per configuration with the ODS covering, PRI and VoI (each at its own best
+level) and the mean of the per-image best coverings (OIS).
 """
 
 from __future__ import annotations
@@ -222,7 +224,12 @@ def main(argv=None):
     levels = np.round(np.arange(args.level_min, 1.0001, 0.025), 3)
     for overrides in json.loads(args.configs):
         t0 = time.perf_counter()
-        s = evaluate(ids, get_preset(args.preset, **overrides), cache, levels)
+        fields = dict(overrides)
+        if "ensemble" in fields:  # JSON lists -> nested tuples (a preset stays hashable)
+            fields["ensemble"] = tuple(
+                (tuple(map(tuple, o)), float(r)) for o, r in fields["ensemble"]
+            )
+        s = evaluate(ids, get_preset(args.preset, **fields), cache, levels)
         print(
             f"{json.dumps(overrides):60s} covering {s['covering']:.4f}@{s['covering_level']:.3f} "
             f"PRI {s['pri']:.4f}@{s['pri_level']:.3f} VoI {s['voi']:.3f}@{s['voi_level']:.3f} "
