@@ -16,11 +16,15 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import ndimage
 
 from .hierarchy import RegionHierarchy, merge_regions, oversegment
+
+if TYPE_CHECKING:
+    from .presets import BoundaryPreset
 
 __all__ = [
     "member_presets",
@@ -36,7 +40,7 @@ SHARED_CUE_FIELDS = frozenset(
 )
 
 
-def member_presets(preset="photo") -> tuple[tuple[object, float], ...]:
+def member_presets(preset="photo") -> tuple[tuple[BoundaryPreset, float], ...]:
     """The member presets of an ensemble preset with their reference levels.
 
     Parameters
