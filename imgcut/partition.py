@@ -494,6 +494,7 @@ def recursive_ncut(
     seed: SeedLike = None,
     eigenpairs: Any = None,
     n_eigenvectors: int = 3,
+    aggregates: Any = None,
 ) -> Hierarchy:
     """Recursive two-way normalized cut (Shi & Malik 2000, section 3.1).
 
@@ -515,6 +516,9 @@ def recursive_ncut(
         Eigenpairs already solved on the whole of ``W`` (at least 2); saves the first solve.
     n_eigenvectors : int, default 3
         Eigenpairs per subproblem (>= 2); a third one helps LOBPCG separate ``lambda_2``.
+    aggregates : array_like of int, shape (n,), optional
+        Coarse aggregates of the nodes for the ``"twolevel"`` eigensolver
+        (:func:`imgcut.twolevel.tile_aggregates`); each subproblem gets its own nodes' part.
 
     Returns
     -------
@@ -593,14 +597,22 @@ def recursive_ncut(
     solves: list[dict[str, Any]] = []
     root = [np.zeros(0), np.zeros(0)]  # eigenvalues and residuals of the whole-graph solve
 
-    def solve(sub: sp.csr_matrix, x0: np.ndarray | None):
+    if aggregates is not None:
+        aggregates = np.asarray(aggregates)
+        if aggregates.shape != (n,):
+            raise ValueError(f"aggregates must have shape ({n},); got {aggregates.shape}")
+
+    def solve(sub: sp.csr_matrix, x0: np.ndarray | None, nodes: np.ndarray):
         k = min(n_eigenvectors, sub.shape[0])
         if x0 is not None:
             # Leave one column of the block random: a block made only of the parent's
             # vectors can lack any component along the child's lambda_2 eigenvector.
             x0 = _warm_start(x0, max(1, k - 1), rng)
         t = time.perf_counter()
-        ep = laplacian_eigenpairs(sub, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng, x0=x0)
+        agg = None if aggregates is None else aggregates[nodes]
+        ep = laplacian_eigenpairs(
+            sub, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng, x0=x0, aggregates=agg
+        )
         solves.append(
             {
                 "nodes": int(sub.shape[0]),
@@ -646,7 +658,7 @@ def recursive_ncut(
                 x0 = x0[core]
             ep = None
         if ep is None:
-            ep = solve(sub, x0)
+            ep = solve(sub, x0, idx if core is None else idx[core])
         if tree_id == 0:
             root[:] = [np.asarray(ep.values, float), np.asarray(ep.residuals, float)]
         values = np.asarray(ep.values, dtype=np.float64)

@@ -17,10 +17,12 @@ import numpy as np
 
 from imgcut.features import compute_features
 from imgcut.graph import DEFAULT_MEMORY_BUDGET, affinity_graph
+from imgcut.hierarchy import oversegment
 from imgcut.multiscale import AUTO_MULTISCALE_PIXELS, multiscale_eigenpairs, multiscale_problem
 from imgcut.partition import Hierarchy, SplitRecord, kway_ncut, recursive_ncut
 from imgcut.regions import enforce_connectivity, pair_weights, renumber_raster
-from imgcut.spectral import SOLVERS, laplacian_eigenpairs
+from imgcut.spectral import _AUTO_DENSE_NODES, SOLVERS, laplacian_eigenpairs
+from imgcut.twolevel import tile_aggregates
 
 __all__ = ["segment", "Segmentation", "METHODS", "KWAY_METHODS", "auto_scale"]
 
@@ -298,8 +300,11 @@ def segment(
     connected : bool, default True
         Make every region one 4-connected patch (split patches, merge small fragments).
         False returns the normalized-cut classes as they are.
-    solver : {"auto", "lobpcg-amg", "arpack", "dense"}, default "auto"
-        Eigensolver backend (see :func:`imgcut.spectral.laplacian_eigenpairs`).
+    solver : {"auto", "twolevel", "lobpcg-amg", "arpack", "dense"}, default "auto"
+        Eigensolver backend (see :func:`imgcut.spectral.laplacian_eigenpairs`). On the
+        single-scale path ``"auto"`` and ``"twolevel"`` build the two-level solver's coarse
+        space from the image (watershed basins of the edge map cut into 10-pixel tiles,
+        :mod:`imgcut.twolevel`), for the whole image and every recursive re-solve.
     tol : float, optional
         Residual tolerance of every eigensolve. None: ``SINGLE_SCALE_TOL`` (1e-5) on the
         single-scale path, ``MULTISCALE_TOL`` (3e-2) on the multiscale path.
@@ -458,11 +463,22 @@ def segment(
     k = min(n_eigenvectors, n)
 
     t = time.perf_counter()
+    aggregates = None
+    if problem is None and solver in ("auto", "twolevel") and n > _AUTO_DENSE_NODES:
+        # Coarse space of the two-level eigensolver: watershed basins of the edge map cut
+        # into tiles (imgcut.twolevel; docs/performance.md).
+        aggregates = tile_aggregates(oversegment(feats.edges, smooth=1.0), nodes=nodes)
     if problem is not None:
         ep = multiscale_eigenpairs(None, k, problem=problem, tol=tol, maxiter=maxiter, seed=rng)
     else:
         ep = laplacian_eigenpairs(
-            graph.weights, k, solver=solver, tol=tol, maxiter=maxiter, seed=rng
+            graph.weights,
+            k,
+            solver=solver,
+            tol=tol,
+            maxiter=maxiter,
+            seed=rng,
+            aggregates=aggregates,
         )
     timings["eigensolve"] = time.perf_counter() - t
 
@@ -484,6 +500,7 @@ def segment(
             maxiter=maxiter,
             seed=rng,
             eigenpairs=ep if ep.k >= 2 else None,
+            aggregates=aggregates,
         )
         node_labels = hierarchy.labels
     else:

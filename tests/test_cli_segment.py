@@ -307,7 +307,10 @@ def test_existing_outputs_are_refused_without_overwrite(work):
         (["--radius", "-3"], ["--radius must be > 0"]),
         (["--method", "spectral"], ["--method must be one of auto, recursive, kway, boundary"]),
         (["--cue", "texture"], ["--cue must be one of combined, intensity, contour"]),
-        (["--solver", "gpu"], ["--solver must be one of auto, lobpcg-amg, arpack, dense"]),
+        (
+            ["--solver", "gpu"],
+            ["--solver must be one of auto, twolevel, lobpcg-amg, arpack, dense"],
+        ),
         (["--max-ncut", "5"], ["--max-ncut must be in (0, 2]"]),
         (["--method", "kway", "--max-ncut", "0.1"], ["--max-ncut", "recursive only"]),
         (["--min-area", "0"], ["--min-area must be an integer ≥ 1"]),

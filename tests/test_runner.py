@@ -68,7 +68,7 @@ def _listing(folder):
         ({"method": "boundary", "radius": 3.0}, "radius", "not used by method boundary"),
         ({"method": "boundary", "eigenvectors": True}, "eigenvectors", "method boundary"),
         ({"cue": "texture"}, "cue", "one of combined, intensity, contour"),
-        ({"solver": "magic"}, "solver", "one of auto, lobpcg-amg, arpack, dense"),
+        ({"solver": "magic"}, "solver", "one of auto, twolevel, lobpcg-amg, arpack, dense"),
         ({"max_ncut": 3.0}, "max_ncut", "in (0, 2]"),
         ({"max_ncut": 0.1, "method": "kway"}, "max_ncut", "method recursive only"),
         ({"sigma_edge": 0.0}, "sigma_edge", "> 0"),

@@ -235,7 +235,7 @@ def test_single_pixel_single_row_and_more_regions_than_pixels():
         ({"method": "spectral"}, "valid values: recursive, kway"),
         ({"kway_method": "gmm"}, "valid values: discretize, kmeans"),
         ({"cue": "texture"}, "valid values: combined, intensity, contour"),
-        ({"solver": "magic"}, "valid values: auto, lobpcg-amg, arpack, dense"),
+        ({"solver": "magic"}, "valid values: auto, twolevel, lobpcg-amg, arpack, dense"),
         ({"min_area": 0}, "min_area must be an integer >= 1"),
         ({"max_ncut": -1.0}, "max_ncut must be a number > 0"),
         ({"method": "kway", "n_eigenvectors": 2}, "n_eigenvectors >= n_regions"),

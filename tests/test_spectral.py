@@ -331,7 +331,7 @@ def test_single_row_image_is_a_path():
 def test_invalid_solver_lists_valid_ones():
     with pytest.raises(ValueError, match="lobpcg-amg, arpack, dense"):
         laplacian_eigenpairs(path_graph(5), 2, solver="lanczos")
-    assert set(SOLVERS) == {"auto", "lobpcg-amg", "arpack", "dense"}
+    assert set(SOLVERS) == {"auto", "twolevel", "lobpcg-amg", "arpack", "dense"}
 
 
 @pytest.mark.parametrize(

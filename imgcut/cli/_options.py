@@ -434,8 +434,9 @@ def _segmentation_options(
             "--solver",
             rich_help_panel=PANEL_GRAPH,
             help=(
-                "Eigensolver: auto (dense up to 1000 nodes, tuned Lanczos above), "
-                "arpack, lobpcg-amg or dense."
+                "Eigensolver: auto (dense up to 1000 nodes, above that LOBPCG with a "
+                "two-level preconditioner built from the image's edges, Lanczos as "
+                "fallback), twolevel, arpack, lobpcg-amg or dense."
             ),
         ),
     ] = "auto",
