@@ -157,3 +157,25 @@ def test_maxiter_honoured_and_reported():
     with pytest.warns(EigenConvergenceWarning, match="arpack"):  # the fallback's cap too
         ep = laplacian_eigenpairs(g.weights, 6, tol=1e-8, maxiter=1, seed=0, aggregates=agg)
     assert ep.info.get("twolevel_fallback") == "residuals above tol"
+
+
+def test_aggregates_split_at_weak_links_and_low_degree_nodes_stand_alone():
+    # Nodes 0-2 and 3-5 form two triangles joined by a 1e-9 link, all in one aggregate:
+    # the split rule (w_ij >= SPLIT_STRENGTH * min(d_i, d_j)) must separate them. Node 6
+    # hangs on by 1e-3 only: degree far below 5 % of the median, so it stands alone.
+    from imgcut.twolevel import _coarse_space
+
+    edges = [(0, 1, 1), (1, 2, 1), (0, 2, 1), (3, 4, 1), (4, 5, 1), (3, 5, 1), (2, 3, 1e-9)]
+    edges.append((5, 6, 1e-3))
+    r, c, w = (np.array(x) for x in zip(*edges, strict=True))
+    W = sp.coo_matrix((np.r_[w, w], (np.r_[r, c], np.r_[c, r])), shape=(7, 7)).tocsr()
+    d = np.asarray(W.sum(axis=1)).ravel()
+    P, s, n_low = _coarse_space(normalized_laplacian(W), d, np.zeros(7, dtype=int))
+    agg = np.asarray(P.argmax(axis=1)).ravel()
+    assert n_low == 1 and s == 3
+    assert len({agg[0], agg[1], agg[2]}) == 1 and len({agg[3], agg[4], agg[5]}) == 1
+    assert len({agg[0], agg[3], agg[6]}) == 3
+    # columns carry sqrt(d): P^T P is the diagonal of aggregate volumes
+    np.testing.assert_allclose(
+        np.sort((P.T @ P).diagonal()), np.sort([d[:3].sum(), d[3:6].sum(), d[6]])
+    )
