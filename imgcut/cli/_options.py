@@ -96,7 +96,7 @@ _SCALE_MEANING = {
     "single": "one pixel graph of the given --radius",
     "multi": "coarse-to-fine multiscale graph, less time and memory on large images "
     "(--method kway only)",
-    "auto": "multi for k-way cuts of images over 400 000 pixels (method auto picks k-way "
+    "auto": "multi for k-way cuts of images over 150 000 pixels (method auto picks k-way "
     "there for grey and microscopy images), else single",
 }
 _SCALE_HELP = (
