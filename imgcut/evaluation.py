@@ -293,7 +293,8 @@ def segment_sweep(image: np.ndarray, counts: Sequence[int], **options: Any) -> l
     """
     from imgcut import segment
 
-    if options.get("method", "recursive") == "kway":
+    options = {"method": "recursive", **options}  # explicit: segment's default is "auto"
+    if options["method"] == "kway":
         return [segment(image, n_regions=int(k), **options).labels for k in counts]
     seg = segment(image, n_regions=int(max(counts)), **options)
     top = int(seg.levels)
@@ -548,7 +549,7 @@ def _evaluate_item_inner(
         opts.update({k: v for k, v in segment_options.items() if k in BOUNDARY_OPTIONS})
         fn_sweep = lambda im, c: boundary_sweep(im, c, by=sweep, **opts)  # noqa: E731
     else:
-        opts = {**segment_options, "method": used} if used == "kway" else segment_options
+        opts = {**segment_options, "method": used}
         fn_sweep = lambda im, c: segment_sweep(im, c, **opts)  # noqa: E731
     if asked == "auto" and sweep_segmenter is None:
         own, why = resolve_method("auto", image.shape, segment_options)

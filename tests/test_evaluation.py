@@ -158,7 +158,7 @@ def test_default_segmenter_is_used_and_hookable(tmp_path, monkeypatch):
 
     monkeypatch.setattr(evaluation, "segment_sweep", fake)
     evaluate_dataset(root, counts=(2, 4), segment_options={"radius": 3})
-    assert calls == [((2, 4), {"radius": 3})]
+    assert calls == [((2, 4), {"radius": 3, "method": "recursive"})]
 
 
 def test_parallel_jobs_give_the_same_scores(tmp_path):

@@ -179,7 +179,7 @@ def test_auto_on_grey_runs_recursive_and_kway_is_passed_on(tmp_path, monkeypatch
     monkeypatch.setattr(evaluation, "segment_sweep", fake)
     res = evaluate_dataset(root, counts=(2, 3))
     assert res.method == "recursive" and "grey image" in res.method_reason
-    assert calls[-1] == {}
+    assert calls[-1] == {"method": "recursive"}
     res = evaluate_dataset(root, counts=(2, 3), method="kway")
     assert res.method == "kway" and calls[-1] == {"method": "kway"}
     # older callers put the method in segment_options

@@ -232,7 +232,7 @@ def test_single_pixel_single_row_and_more_regions_than_pixels():
         ({"n_regions": 2.5}, "n_regions must be an integer >= 1"),
         ({"radius": 0}, "radius must be finite and > 0"),
         ({"radius": -3}, "radius must be finite and > 0"),
-        ({"method": "spectral"}, "valid values: recursive, kway"),
+        ({"method": "spectral"}, "valid values: auto, recursive, kway"),
         ({"kway_method": "gmm"}, "valid values: discretize, kmeans"),
         ({"cue": "texture"}, "valid values: combined, intensity, contour"),
         ({"solver": "magic"}, "valid values: auto, twolevel, lobpcg-amg, arpack, dense"),
@@ -304,8 +304,19 @@ def test_scale_auto_switches_on_pixel_count(monkeypatch):
     assert big.params["scale"] == "auto" and big.params["scale_used"] == "multi"
     assert big.params["tol"] == mod.MULTISCALE_TOL and "multiscale" in big.params
     assert masked.params["scale_used"] == "single" and masked.params["tol"] == 1e-5
-    rec = segment(img[:, 20:28], n_regions=2, radius=2)  # recursive: never multiscale
+    rec = segment(img[:, 20:28], n_regions=2, radius=2, method="recursive")  # never multi
     assert rec.params["scale_used"] == "single"
+    # method="auto" (the default): k-way where the multiscale path applies, else recursive
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        auto_big = segment(img, n_regions=2, radius=3)
+        auto_ncut = segment(img, n_regions=2, radius=3, max_ncut=0.5)
+        auto_masked = segment(img, n_regions=2, radius=3, mask=img > -1)
+    assert auto_big.params["method_asked"] == "auto"
+    assert auto_big.params["method"] == "kway" and auto_big.params["scale_used"] == "multi"
+    assert auto_ncut.params["method"] == "recursive"  # max_ncut is a recursive option
+    assert auto_masked.params["method"] == "recursive"  # the multiscale path has no mask
+    assert (auto_big.labels == big.labels).all()
     monkeypatch.setattr(mod, "AUTO_MULTISCALE_PIXELS", 10**9)
     small = segment(img, n_regions=2, method="kway", radius=3)
     assert small.params["scale_used"] == "single"
@@ -317,7 +328,9 @@ def test_scale_auto_switches_on_pixel_count(monkeypatch):
 def test_multiscale_path_rejects_recursive_and_mask():
     img = np.zeros((8, 8))
     with pytest.raises(ValueError, match="method='kway'"):
-        segment(img, scale="multi")
+        segment(img, method="recursive", scale="multi")
+    # method "auto" takes k-way wherever the multiscale path is asked for
+    assert segment(np.zeros((16, 16)), n_regions=2, scale="multi").params["method"] == "kway"
     with pytest.raises(ValueError, match="mask"):
         segment(img, method="kway", scale="multi", mask=np.ones((8, 8), bool))
     with pytest.raises(ValueError, match="scale"):
