@@ -27,6 +27,7 @@ Usage::
     python benchmarks/bench_eigensolver.py                 # BSDS val image, r = 5, k = 8
     python benchmarks/bench_eigensolver.py --scale 0.5     # half-size image, quicker
     python benchmarks/bench_eigensolver.py --write-docs    # also update docs/performance.md
+    python benchmarks/bench_eigensolver.py --methods imgcut --segment   # + whole segment calls
 """
 
 from __future__ import annotations
@@ -45,6 +46,7 @@ import scipy.sparse.linalg as spla
 from imgcut.features import compute_features
 from imgcut.graph import affinity_graph
 from imgcut.hierarchy import oversegment
+from imgcut.segment import segment
 from imgcut.spectral import laplacian_eigenpairs, normalized_laplacian
 from imgcut.twolevel import tile_aggregates
 
@@ -200,6 +202,12 @@ def main(argv=None) -> str:
         help="comma-separated subset of imgcut, imgcut-lanczos, arpack, lobpcg-sa, sklearn-amg",
     )
     ap.add_argument("--write-docs", action="store_true")
+    ap.add_argument(
+        "--segment",
+        action="store_true",
+        help="also time whole imgcut.segment calls (8 regions, this radius) on the image: "
+        "method auto, and k-way / recursive on the single-scale graph",
+    )
     args = ap.parse_args(argv)
 
     img, name = load_image(args.image, args.scale)
@@ -262,6 +270,17 @@ def main(argv=None) -> str:
             f"| {meth} | {wall:.2f} | {cpu:.2f} | {res:.1e} | {'yes' if ok else 'NO'} "
             f"| {err:.1e} | {ratio} | {note} |"
         )
+    if args.segment:
+        lines += ["", "| `segment` call | wall s | CPU s | method used | scale used | regions |"]
+        lines.append("|---|---|---|---|---|---|")
+        for kwargs in ({}, {"method": "kway", "scale": "single"}, {"method": "recursive"}):
+            res, wall, cpu = timed(lambda kw=kwargs: segment(img, 8, radius=args.radius, **kw))
+            label = ", ".join(f"{k}={v!r}" for k, v in kwargs.items()) or "defaults"
+            lines.append(
+                f"| {label} | {wall:.2f} | {cpu:.2f} | {res.params['method']} "
+                f"| {res.params['scale_used']} | {res.n_regions} |"
+            )
+            print(f"  segment({label}): wall {wall:.2f} s, cpu {cpu:.2f} s", flush=True)
     table = "\n".join(lines)
     print()
     print(table)

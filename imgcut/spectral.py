@@ -514,14 +514,14 @@ def laplacian_eigenpairs(
         the image (:mod:`imgcut.twolevel`); needs ``aggregates``. When its coarse space is
         unusable, or (with ``"auto"``) its residuals miss ``tol``, the component is solved
         again by ``"arpack"``, warm-started from its vectors. On the 481×321, radius-5
-        benchmark graph it is about 10× faster than ARPACK with the same eigenvalues
-        (docs/performance.md). ``"arpack"``: implicitly restarted Lanczos
-        (``scipy.sparse.linalg.eigsh``) on
-        the largest eigenvalues of ``D^-1/2 W D^-1/2``, with the null vector deflated, a
+        benchmark graph it took 12.7× less CPU than ARPACK with the same eigenvalues
+        (``benchmarks/bench_eigensolver.py``, docs/performance.md). ``"arpack"``:
+        implicitly restarted Lanczos (``scipy.sparse.linalg.eigsh``) on the largest
+        eigenvalues of ``D^-1/2 W D^-1/2``, with the null vector deflated, a
         Krylov basis of 64 vectors when memory allows (scipy's default of
         ``2 m + 1`` restarts too often on the clustered spectra of image graphs), two guard
         eigenpairs, float32 products when ``tol >= FLOAT32_MIN_TOL`` and a float64
-        Rayleigh-Ritz step at the end; the default for large graphs.
+        Rayleigh-Ritz step at the end; the default for large graphs without aggregates.
         ``"lobpcg-amg"``: LOBPCG preconditioned by a smoothed-aggregation multigrid
         V-cycle (pyamg); on BSDS image graphs at radius 5 it was not faster and at
         tol 1e-5 it can converge to a set that misses one of the k smallest

@@ -45,13 +45,15 @@ __all__ = [
 ]
 
 #: Side of the square tiles that cut the over-segmentation's basins (pixels). Measured on
-#: BSDS val 101085 (481×321, radius 5, k = 8): tiles of 16 px left the LOBPCG at 76-80
-#: iterations, 10 px at 20-24 (docs/performance.md, session 5).
+#: BSDS val 101085 (481×321, radius 5, k = 8) with Felzenszwalb segments in place of the
+#: watershed basins, before the other rules here: tiles of 16 px took 80 LOBPCG iterations,
+#: 10 px 24 (one run each; docs/performance.md, session 5).
 TILE = 10
 
 #: Nodes whose degree is below this fraction of the median degree become aggregates of their
-#: own. 0.01 still missed the eigenvalue 1.486e-6 of BSDS val 101085 (a 14-pixel patch
-#: whose pixels have degree about 1); 0.05 found it (docs/performance.md, session 5).
+#: own. With Felzenszwalb segments × 10-px tiles, 0.01 still missed the eigenvalue 1.486e-6
+#: of BSDS val 101085 (a 14-pixel wedge whose pixels have degree about 1); 0.05 found it
+#: (docs/performance.md, session 5).
 LOW_DEGREE = 0.05
 
 #: Aggregates are split into the connected pieces of their links with
