@@ -186,14 +186,12 @@ def _coarse_space(Lc: sp.csr_matrix, degrees: np.ndarray, aggregates: np.ndarray
         # Split every aggregate into the connected pieces of its strong links
         # (w_ij >= SPLIT_STRENGTH * min(d_i, d_j)): a one-pixel line cut off by near-zero
         # weights is its own piece even when the watershed basin runs across it.
-        C = Lc.tocoo()
-        r, c = C.row, C.col
-        w = -C.data * np.sqrt(degrees[r] * degrees[c])
-        keep = (
-            (r != c)
-            & (agg[r] == agg[c])
-            & (w >= SPLIT_STRENGTH * np.minimum(degrees[r], degrees[c]))
-        )
+        r = np.repeat(np.arange(n, dtype=Lc.indices.dtype), np.diff(Lc.indptr))
+        same = agg[r] == agg[Lc.indices]  # links inside an aggregate only
+        r, c, v = r[same], Lc.indices[same], Lc.data[same]
+        dr, dc = degrees[r], degrees[c]
+        # w_ij = -L_ij sqrt(d_i d_j) >= SPLIT_STRENGTH min(d_i, d_j)
+        keep = (r != c) & (-v * np.sqrt(dr * dc) >= SPLIT_STRENGTH * np.minimum(dr, dc))
         G = sp.csr_matrix((np.ones(int(keep.sum())), (r[keep], c[keep])), shape=(n, n))
         agg = csgraph.connected_components(G, directed=False)[1].astype(np.int64)
     else:
