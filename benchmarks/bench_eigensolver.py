@@ -127,6 +127,63 @@ def run_imgcut(W, k, tol, seed, edges=None, nodes=None):
     return ep.values, ep.residuals, note
 
 
+def plot_vectors(img, feats, graph, k, tol, seed, path: Path) -> None:
+    """The image with the nodes that form aggregates of their own (low degree), and the
+    generalised eigenvectors y_2 … y_k of the two-level solve; vectors concentrated on a few
+    pixels are circled."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from imgcut.twolevel import LOW_DEGREE, _coarse_space
+
+    h, w = img.shape[:2]
+    agg = tile_aggregates(oversegment(feats.edges, smooth=1.0), nodes=graph.nodes)
+    ep = laplacian_eigenpairs(graph.weights, k, tol=tol, seed=seed, aggregates=agg)
+    d = np.asarray(graph.weights.sum(axis=1)).ravel()
+    _, s, n_low = _coarse_space(normalized_laplacian(graph.weights), d, agg)
+    shown = np.asarray(img, dtype=float)
+    shown = (shown - shown.min()) / max(float(np.ptp(shown)), 1e-12)
+    if shown.ndim == 2:
+        shown = np.dstack([shown] * 3)
+    shown = 0.6 * shown
+    low = (d < LOW_DEGREE * np.median(d)).reshape(h, w)
+    shown[low] = (1.0, 0.85, 0.0)
+    cols = 4
+    rows = -(-k // cols)
+    fig, axes = plt.subplots(rows, cols, figsize=(2.6 * cols, 2.6 * rows * h / w + 0.4))
+    axes = np.atleast_1d(axes).ravel()
+    axes[0].imshow(shown)
+    axes[0].set_title(
+        f"yellow: {n_low} low-degree nodes\n(coarse space {s} aggregates)", fontsize=7
+    )
+    for j in range(1, k):
+        v = ep.vectors[:, j] * np.sqrt(d)  # D^1/2 y: the mass the eigenvector puts on pixels
+        mass = np.sort(v**2)[::-1].cumsum() / max(float((v**2).sum()), 1e-300)
+        support = int(np.searchsorted(mass, 0.9)) + 1
+        img_v = ep.vectors[:, j].reshape(h, w)
+        lim = float(np.abs(img_v).max()) or 1.0
+        axes[j].imshow(img_v, cmap="RdBu_r", vmin=-lim, vmax=lim)
+        title = f"y{j + 1}, λ = {ep.values[j]:.3g}"
+        if support <= 50:
+            r, c = divmod(int(np.argmax(v**2)), w)
+            axes[j].add_patch(plt.Circle((c, r), 12, fill=False, color="k", lw=1.2))
+            title += f"\n90 % of its mass on {support} px"
+        axes[j].set_title(title, fontsize=7)
+    for a in axes:
+        a.axis("off")
+    fig.suptitle(
+        f"two-level LOBPCG: {ep.iterations} iterations, max residual {ep.residuals.max():.1e}",
+        fontsize=8,
+    )
+    fig.tight_layout()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path, dpi=90)
+    plt.close(fig)
+    print(f"wrote {path}")
+
+
 def run_arpack(W, k, tol, seed, L):
     lam, V = arpack(W, k, tol, seed=seed)
     return lam, np.linalg.norm(L @ V - V * lam, axis=0), "eigsh LA"
@@ -208,6 +265,12 @@ def main(argv=None) -> str:
         help="also time whole imgcut.segment calls (8 regions, this radius) on the image: "
         "method auto, and k-way / recursive on the single-scale graph",
     )
+    ap.add_argument(
+        "--plot",
+        default=None,
+        metavar="PNG",
+        help="write a picture of the two-level coarse space and the eigenvectors it found",
+    )
     args = ap.parse_args(argv)
 
     img, name = load_image(args.image, args.scale)
@@ -270,6 +333,8 @@ def main(argv=None) -> str:
             f"| {meth} | {wall:.2f} | {cpu:.2f} | {res:.1e} | {'yes' if ok else 'NO'} "
             f"| {err:.1e} | {ratio} | {note} |"
         )
+    if args.plot:
+        plot_vectors(img, feats, graph, args.k, args.tol, args.seed, Path(args.plot))
     if args.segment:
         lines += ["", "| `segment` call | wall s | CPU s | method used | scale used | regions |"]
         lines.append("|---|---|---|---|---|---|")
