@@ -57,8 +57,8 @@ class Eigenpairs:
     residuals : ndarray, shape (k,)
         ``||L v - lambda v|| / ||v||`` for the normalised eigenvectors ``v = D^1/2 y``.
     solver : str
-        Backend used on the largest component (``"dense"``, ``"arpack"`` or
-        ``"lobpcg-amg"``); ``"none"`` when only null vectors were needed.
+        Backend used on the largest component (``"dense"``, ``"twolevel"``, ``"arpack"``
+        or ``"lobpcg-amg"``); ``"none"`` when only null vectors were needed.
     iterations : int
         Iterations of the iterative backend summed over components (0 for dense).
     n_components : int
@@ -73,7 +73,8 @@ class Eigenpairs:
         Seconds spent per stage (``components``, ``setup``, ``solve``, ``check``,
         ``total``).
     info : dict
-        Backend details (for example the guard Ritz values of LOBPCG).
+        Backend details (for example the guard Ritz values of LOBPCG; for ``"twolevel"``
+        the coarse-space size, and ``twolevel_fallback`` when Lanczos took over).
     """
 
     values: np.ndarray
