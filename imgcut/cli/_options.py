@@ -352,8 +352,10 @@ def _segmentation_options(
         typer.Option(
             "--method",
             rich_help_panel=PANEL_CUT,
-            help="auto: boundary for 3-channel colour images (photographs), recursive for grey "
-            "and microscopy images or when a graph option (--radius, --max-ncut, …) is given; "
+            help="auto: boundary for 3-channel colour images (photographs), recursive for them "
+            "when a graph option (--radius, --max-ncut, …) is given; for grey and microscopy "
+            "images recursive, or kway on the multiscale graph above 150 000 pixels with a "
+            "region count; "
             "recursive: repeated two-way normalized cuts, cheapest first; kway: one eigensolve "
             "and a simultaneous partition; boundary: region hierarchy from brightness, colour "
             "and texture boundaries merged greedily (photo preset), N regions or, with "
