@@ -486,7 +486,7 @@ def segment(
 
     t = time.perf_counter()
     aggregates = None
-    if problem is None and solver in ("auto", "twolevel") and n > _AUTO_DENSE_NODES:
+    if problem is None and (solver == "twolevel" or (solver == "auto" and n > _AUTO_DENSE_NODES)):
         # Coarse space of the two-level eigensolver: watershed basins of the edge map cut
         # into tiles (imgcut.twolevel; docs/performance.md).
         aggregates = tile_aggregates(oversegment(feats.edges, smooth=1.0), nodes=nodes)

@@ -179,3 +179,28 @@ def test_aggregates_split_at_weak_links_and_low_degree_nodes_stand_alone():
     np.testing.assert_allclose(
         np.sort((P.T @ P).diagonal()), np.sort([d[:3].sum(), d[3:6].sum(), d[6]])
     )
+
+
+def test_segment_accepts_twolevel_on_small_images():
+    # "auto" skips the aggregates below 1000 nodes (dense solves); an explicit "twolevel"
+    # must still get them instead of failing with "needs aggregates".
+    from imgcut import segment
+
+    img = _speckled_image(3)[:20, 20:50]
+    res = segment(img, 3, solver="twolevel", radius=2)
+    assert res.params["solver"] == "twolevel" and res.residuals.max() <= 1e-5
+
+
+def test_sparse_coarse_branch_matches_closed_form(monkeypatch):
+    # Coarse spaces above _DENSE_COARSE nodes are factored by SuperLU and solved by
+    # shift-invert Lanczos; force that branch on the torus (Chung 1997, sec. 1.5).
+    import imgcut.twolevel as tl
+
+    monkeypatch.setattr(tl, "_DENSE_COARSE", 10)
+    a, b = 40, 36
+    i, j = np.meshgrid(np.arange(a), np.arange(b), indexing="ij")
+    exact = np.sort((1 - (np.cos(2 * np.pi * i / a) + np.cos(2 * np.pi * j / b)) / 2).ravel())
+    agg = tile_aggregates(np.zeros((a, b), dtype=int), tile=4)
+    ep = laplacian_eigenpairs(_torus(a, b), 5, tol=1e-8, seed=0, aggregates=agg)
+    assert ep.solver == "twolevel" and ep.info["coarse_size"] > 10
+    np.testing.assert_allclose(ep.values, exact[:5], atol=1e-8)
