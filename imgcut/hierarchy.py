@@ -78,8 +78,10 @@ class RegionHierarchy:
 
     @property
     def n_base(self) -> int:
-        """Number of regions of the over-segmentation."""
-        return int(self.base_labels.max())
+        """Number of regions of the over-segmentation (a region may have no pixels after
+        :func:`imgcut.working_scale.upsample_hierarchy`; it still counts)."""
+        top = int(self.edges.max()) + 1 if len(self.edges) else 0
+        return max(int(self.base_labels.max()), top)
 
     def _components(self, level: float) -> np.ndarray:
         keep = self.edge_levels <= level
@@ -626,6 +628,19 @@ def image_hierarchy(
     from .spectral_boundary import global_boundary
 
     p = get_preset(preset)
+    img = np.asarray(image)
+    if img.ndim in (2, 3) and p.working_pixels:
+        from .working_scale import working_scale
+
+        s = working_scale(img.shape, p.working_pixels)
+        if s < 1.0:  # a large photograph: hierarchy at the working size, borders at full size
+            from dataclasses import replace
+
+            from .working_scale import downsample_image, edge_guide, upsample_hierarchy
+
+            small = downsample_image(img, s)
+            h = image_hierarchy(small, preset=replace(p, working_pixels=0), seed=seed)
+            return upsample_hierarchy(h, img.shape[:2], guide=edge_guide(img))
     if p.ensemble:  # several merge-score variants on shared cues, one hierarchy from their maps
         from .ensemble import ensemble_image_hierarchy
 

@@ -86,6 +86,12 @@ class BoundaryPreset:
         Level of the ensemble's hierarchy at which every member's reference level lands.
     ensemble_dilation : int
         Side of the square grey dilation of each member's map before averaging (odd).
+    working_pixels : int
+        Images with more pixels are segmented on an anti-aliased copy of about this many
+        pixels and the hierarchy is mapped back to full resolution, borders re-drawn on the
+        full-resolution edges (:mod:`imgcut.working_scale`).  Everything in pixels (cue
+        scales, ``min_area``) then refers to the working size, as when the preset was fitted.
+        0: always at full resolution.
     """
 
     name: str
@@ -123,6 +129,7 @@ class BoundaryPreset:
     ensemble: tuple[tuple[tuple[tuple[str, object], ...], float], ...] = ()
     ensemble_level: float = 0.5
     ensemble_dilation: int = 3
+    working_pixels: int = 0
 
     def weights(self) -> dict[str, float]:
         """Cue weights as a dict for :func:`imgcut.cues.combine_cues`.
@@ -228,6 +235,7 @@ _PHOTO = BoundaryPreset(
     default_level=0.525,  # best covering on train-200 with and without the ensemble
     level_sweep=tuple(round(0.025 * i, 3) for i in range(12, 37)),
     ensemble=PHOTO_ENSEMBLE,
+    working_pixels=250_000,  # the cue scales were fitted at 154 000 px (BSDS500)
 )
 
 # Hand-set for microscopy, not tuned; keeps the plain mean-strength merge of the first version.
@@ -244,6 +252,7 @@ _FLUORESCENCE = replace(
     default_level=0.65,
     level_sweep=tuple(round(0.05 * i, 2) for i in range(6, 19)),
     ensemble=(),
+    working_pixels=0,
 )
 
 PRESETS: dict[str, BoundaryPreset] = {p.name: p for p in (_PHOTO, _FLUORESCENCE)}

@@ -697,6 +697,7 @@ def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySe
     count given) the preset's tuned level."""
     from imgcut.hierarchy import image_hierarchy
     from imgcut.presets import get_preset
+    from imgcut.working_scale import working_scale
 
     start = time.perf_counter()
     hierarchy = image_hierarchy(image, preset=BOUNDARY_PRESET, seed=options.seed)
@@ -715,6 +716,9 @@ def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySe
         "n_regions_asked": options.n_regions,
         "n_regions": int(labels.max()) if labels.size else 0,
         "n_base_regions": hierarchy.n_base,
+        # < 1: the hierarchy was built on a copy of the image resampled by this factor
+        # (the preset's working_pixels) and its borders re-drawn at full resolution
+        "working_scale": working_scale(image.shape, get_preset(BOUNDARY_PRESET).working_pixels),
         "timings": {
             "hierarchy": built - start,
             "labels": time.perf_counter() - built,

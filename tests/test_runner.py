@@ -474,3 +474,4 @@ def test_boundary_method_on_a_colour_file_records_why(tmp_path):
     labels = np.asarray(Image.open(report.outputs["labels"]))
     np.testing.assert_array_equal(labels, expected)
     assert report.record["segmentation"]["timings"]["hierarchy"] > 0
+    assert report.record["segmentation"]["working_scale"] == 1.0  # small: full resolution

@@ -1,0 +1,127 @@
+"""Photo hierarchies of large images: working size against full resolution (quality, time, memory).
+
+BSDS500 *train* photographs (481 × 321) are enlarged by ``--factor`` (bicubic, Pillow) and
+their human segmentations with them (nearest neighbour), so the humans still score the
+enlarged image.  Each mode runs in its own Python process over the same images, so
+``ru_maxrss`` is that mode's peak resident memory:
+
+- ``full``: ``image_hierarchy(big, preset=get_preset("photo", working_pixels=0))``, every stage
+  at full resolution (imgcut before the working size existed);
+- ``working``: the ``"photo"`` preset as shipped (hierarchy at about ``working_pixels`` pixels,
+  borders re-drawn at full resolution, :mod:`imgcut.working_scale`);
+- ``native``: the photograph at its own 481 × 321 size against the original humans (the size
+  the preset was fitted at; reference only).
+
+Scores: covering, PRI and VoI (:func:`imgcut.metrics.region_scores`, the mean over images) at
+the preset's default level, and ODS over the preset's ``level_sweep``; CPU seconds of
+``image_hierarchy`` per image.  Train images only (the tuning split), so val stays untouched.
+
+Usage::
+
+    OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --images 20 --factor 2
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+
+DATA = Path(__file__).resolve().parents[1].parent / "shared" / "data" / "bsds500"
+
+_CHILD = r"""
+import json, resource, sys, time
+import numpy as np
+import scipy.io as sio
+from PIL import Image
+from imgcut.hierarchy import image_hierarchy
+from imgcut.metrics import region_scores
+from imgcut.presets import get_preset
+mode, factor, root = sys.argv[1], int(sys.argv[2]), sys.argv[3]
+ids = json.loads(sys.argv[4])
+preset = get_preset("photo", working_pixels=0) if mode == "full" else get_preset("photo")
+levels = list(preset.level_sweep)
+rows, cpu = [], []
+for iid in ids:
+    im = Image.open(f"{root}/images/{iid}.jpg")
+    gt = sio.loadmat(f"{root}/groundTruth/{iid}.mat", simplify_cells=True)["groundTruth"]
+    gt = [gt] if isinstance(gt, dict) else list(gt)
+    segs = [g["Segmentation"].astype(np.int32) for g in gt]
+    if mode != "native":
+        im = im.resize((im.width * factor, im.height * factor), Image.BICUBIC)
+        segs = [np.kron(s, np.ones((factor, factor), dtype=np.int32)) for s in segs]
+    img = np.asarray(im)
+    c0 = time.process_time()
+    h = image_hierarchy(img, preset=preset, seed=0)
+    cpu.append(time.process_time() - c0)
+    per = []
+    for t in [preset.default_level] + levels:
+        s = region_scores(h.labels_at(t), segs)
+        per.append((float(s.covering), float(s.pri), float(s.voi.total)))
+    rows.append(per)
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+print(json.dumps({"rows": rows, "cpu": cpu, "peak_mb": peak, "levels": levels,
+                  "shape": list(img.shape[:2])}))
+"""
+
+
+def main(argv=None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--images", type=int, default=20, help="train images (every k-th id)")
+    ap.add_argument("--factor", type=int, default=2, help="integer enlargement factor")
+    ap.add_argument("--modes", default="native,working,full")
+    ap.add_argument("--out", help="write the results as JSON here")
+    args = ap.parse_args(argv)
+    root = DATA / "train"
+    if not root.exists():
+        raise SystemExit(f"BSDS500 train not found at {root}")
+    ids = sorted(p.stem for p in (root / "images").glob("*.jpg"))
+    ids = ids[:: max(1, len(ids) // args.images)][: args.images]
+    results = {}
+    for mode in args.modes.split(","):
+        out = subprocess.run(
+            [sys.executable, "-c", _CHILD, mode, str(args.factor), str(root), json.dumps(ids)],
+            capture_output=True,
+            text=True,
+        )
+        if out.returncode:
+            raise SystemExit(f"mode {mode} failed:\n{out.stderr[-2000:]}")
+        r = json.loads(out.stdout.strip().splitlines()[-1])
+        a = np.array(r["rows"])  # images, 1 + levels, (covering, pri, voi)
+        mean = a.mean(0)
+        sweep = mean[1:]
+        results[mode] = {
+            "shape": r["shape"],
+            "default_level": {"covering": mean[0, 0], "pri": mean[0, 1], "voi": mean[0, 2]},
+            "ods": {
+                "covering": float(sweep[:, 0].max()),
+                "pri": float(sweep[:, 1].max()),
+                "voi": float(sweep[:, 2].min()),
+            },
+            "cpu_s_median": float(np.median(r["cpu"])),
+            "peak_mb": r["peak_mb"],
+        }
+        d, o = results[mode]["default_level"], results[mode]["ods"]
+        print(
+            f"{mode:8s} {r['shape'][0]}x{r['shape'][1]}  default level: covering "
+            f"{d['covering']:.3f} PRI {d['pri']:.3f} VoI {d['voi']:.3f} | ODS: covering "
+            f"{o['covering']:.3f} PRI {o['pri']:.3f} VoI {o['voi']:.3f} | "
+            f"{results[mode]['cpu_s_median']:.2f} s CPU/image, peak {r['peak_mb']:.0f} MB",
+            flush=True,
+        )
+    if {"working", "full"} <= set(results):
+        print(
+            "working / full: time "
+            f"{results['working']['cpu_s_median'] / results['full']['cpu_s_median']:.2f}x, "
+            f"peak memory {results['working']['peak_mb'] / results['full']['peak_mb']:.2f}x"
+        )
+    if args.out:
+        Path(args.out).write_text(json.dumps(results, indent=1, default=float))
+
+
+if __name__ == "__main__":
+    main()
