@@ -78,10 +78,8 @@ class RegionHierarchy:
 
     @property
     def n_base(self) -> int:
-        """Number of regions of the over-segmentation (a region may have no pixels after
-        :func:`imgcut.working_scale.upsample_hierarchy`; it still counts)."""
-        top = int(self.edges.max()) + 1 if len(self.edges) else 0
-        return max(int(self.base_labels.max()), top)
+        """Number of regions of the over-segmentation."""
+        return int(self.base_labels.max())
 
     def _components(self, level: float) -> np.ndarray:
         keep = self.edge_levels <= level

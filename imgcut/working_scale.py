@@ -200,6 +200,91 @@ def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarra
     return out
 
 
+def _kruskal(n: int, edges: np.ndarray, levels: np.ndarray):
+    """Union-find replay of the edges in level order: (parent array, levels of the joins)."""
+    parent = np.arange(n)
+
+    def find(a: int) -> int:
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    joins = []
+    for k in np.argsort(levels, kind="stable").tolist():
+        a, b = find(int(edges[k, 0])), find(int(edges[k, 1]))
+        if a != b:
+            parent[max(a, b)] = min(a, b)
+            joins.append(float(levels[k]))
+    return parent, np.asarray(joins, dtype=np.float64)
+
+
+def _drop_empty_regions(h: RegionHierarchy) -> RegionHierarchy:
+    """Contract base regions without pixels into the region they join first.
+
+    A region without pixels only connects its neighbours; contracting it along its lowest
+    edge (a group of empty regions along the group's lowest outside edge) leaves the pixels of
+    every segmentation, at every level, unchanged, and makes the region count exact again.
+    """
+    n = max(int(h.base_labels.max()), int(h.edges.max()) + 1 if len(h.edges) else 0)
+    present = np.zeros(n, dtype=bool)
+    present[h.base_labels.ravel() - 1] = True
+    if present.all():
+        return h
+    edges, levels, strength = h.edges, h.edge_levels, h.edge_strength
+    rep = np.arange(n)  # representative of every region after contraction
+    while True:
+        while True:  # resolve chains (the contraction graph has no cycles, see below)
+            nxt = rep[rep]
+            if np.array_equal(nxt, rep):
+                break
+            rep = nxt
+        a, b = rep[edges[:, 0]], rep[edges[:, 1]]
+        cross = np.flatnonzero(a != b)
+        order = cross[np.argsort(levels[cross], kind="stable")]  # a strict order of the edges
+        ga, gb = a[order], b[order]
+        ea, eb = ~present[ga], ~present[gb]
+        if not (ea.any() or eb.any()):
+            break
+        rank = np.arange(len(order))
+        group = np.concatenate([ga[ea], gb[eb]])
+        other = np.concatenate([gb[ea], ga[eb]])
+        first = np.lexsort((np.concatenate([rank[ea], rank[eb]]), group))
+        group, other = group[first], other[first]
+        head = np.ones(len(group), dtype=bool)
+        head[1:] = group[1:] != group[:-1]
+        g, p = group[head], other[head]  # every empty group and the end of its lowest edge
+        # Under a strict edge order each group's lowest edge forms a forest except for pairs
+        # that chose the same edge (Boruvka's argument); of such a pair only one contracts.
+        best = np.full(n, -1)
+        best[g] = p
+        mutual = best[p] == g
+        go = ~mutual | (g > p)
+        rep[g[go]] = p[go]
+    a, b = rep[edges[:, 0]], rep[edges[:, 1]]
+    keep = a != b
+    new_id = np.cumsum(present) - 1  # compact numbering of the regions that keep pixels
+    lo, hi = np.minimum(a[keep], b[keep]), np.maximum(a[keep], b[keep])
+    key = new_id[lo].astype(np.int64) * n + new_id[hi]
+    levels, strength = levels[keep], strength[keep]
+    order = np.lexsort((levels, key))  # parallel edges: keep the lowest (the ultrametric)
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = key[order][1:] != key[order][:-1]
+    sel = order[first]
+    edges = np.stack([key[sel] // n, key[sel] % n], axis=1).astype(h.edges.dtype)
+    levels, strength = levels[sel], strength[sel]
+    base = (new_id[rep[h.base_labels - 1]] + 1).astype(np.int32)
+    _, merges = _kruskal(int(present.sum()), edges, levels)
+    return replace(
+        h,
+        base_labels=base,
+        edges=edges,
+        edge_levels=levels,
+        edge_strength=strength,
+        merge_levels=merges,
+    )
+
+
 def upsample_hierarchy(
     h: RegionHierarchy, shape: tuple[int, int], *, guide: np.ndarray | None = None
 ) -> RegionHierarchy:
@@ -219,12 +304,12 @@ def upsample_hierarchy(
     Returns
     -------
     RegionHierarchy
-        The same base regions (a few may keep no pixels, see Notes), merge levels and
+        The base regions of ``h`` (less those the band swallows, see Notes), the same
         default level; ``base_labels`` at full
         resolution; ``boundary`` upsampled linearly.  Pairs of base regions that become
-        adjacent only at full resolution get the level at which they join in ``h`` (so every
-        :meth:`~imgcut.hierarchy.RegionHierarchy.labels_at` is unchanged up to the re-drawn
-        borders, and :meth:`~imgcut.hierarchy.RegionHierarchy.ultrametric_map` stays defined).
+        adjacent only at full resolution get the level at which they join in ``h``, so the
+        regions at every level are those of ``h`` with re-drawn borders, and
+        :meth:`~imgcut.hierarchy.RegionHierarchy.ultrametric_map` stays defined.
 
     Raises
     ------
@@ -239,10 +324,10 @@ def upsample_hierarchy(
     are kept; inside, a watershed of ``guide`` from those markers (Beucher & Meyer 1993,
     :func:`skimage.segmentation.watershed`) gives each pixel to the region it is reached from
     without crossing an edge, so borders settle on the strongest local edge.  A base region
-    that lies entirely inside the band (thinner than about two working pixels, such as the
-    slivers that ``min_area`` merges at level 0) is flooded by its neighbours and keeps no
-    pixels; it stays in the tree, so the merge levels, and the regions at every level, are
-    those of ``h``.
+    that lies entirely inside the band (thinner than about two working pixels) is flooded by
+    its neighbours and keeps no pixels; it is then contracted into the region it joins first
+    (its lowest border), which changes no segmentation at any level, because a region without
+    pixels only connects its neighbours, and keeps region counts exact.
 
     References
     ----------
@@ -301,7 +386,7 @@ def upsample_hierarchy(
     boundary = None
     if h.boundary is not None:
         boundary = resize(np.asarray(h.boundary, dtype=np.float64), shape, order=1)
-    return replace(
+    out = replace(
         h,
         base_labels=up,
         edges=edges,
@@ -309,3 +394,4 @@ def upsample_hierarchy(
         edge_strength=strength,
         boundary=boundary,
     )
+    return _drop_empty_regions(out)

@@ -12,6 +12,7 @@ from scipy.sparse.csgraph import connected_components
 from imgcut.hierarchy import boundary_hierarchy, image_hierarchy
 from imgcut.presets import get_preset
 from imgcut.working_scale import (
+    _drop_empty_regions,
     _join_levels,
     downsample_image,
     edge_guide,
@@ -107,7 +108,10 @@ def test_guide_moves_borders_onto_the_full_resolution_edge():
     h = boundary_hierarchy(gx / gx.max())
     plain = upsample_hierarchy(h, img.shape)
     snapped = upsample_hierarchy(h, img.shape, guide=edge_guide(img))
-    assert snapped.n_base == h.n_base
+    # every base region keeps pixels (thin ones are contracted), so counts are exact
+    assert len(np.unique(snapped.base_labels)) == snapped.n_base
+    for n in (2, 5, 20):
+        assert snapped.labels_with(n).max() == min(n, snapped.n_base)
 
     def border_columns(lab):
         cols = np.flatnonzero(np.any(lab[:, :-1] != lab[:, 1:], axis=0))
@@ -116,7 +120,7 @@ def test_guide_moves_borders_onto_the_full_resolution_edge():
     t = 0.5
     assert border_columns(snapped.labels_at(t)) == {100}
     assert border_columns(plain.labels_at(t)) != {100}  # the staircase copy misses it
-    for level in (0.0, 0.3, 0.5, 1.0):  # same number of regions at every level
+    for level in (0.3, 0.5, 1.0):  # same number of regions from the first real merges on
         assert snapped.n_regions_at(level) == h.n_regions_at(level)
     u = snapped.ultrametric_map()  # defined for every adjacent pair, new ones included
     assert u.shape == img.shape and np.all(np.isfinite(u))
@@ -151,3 +155,34 @@ def test_photo_hierarchy_of_a_large_image_runs_at_the_working_size():
 def test_presets_working_size():
     assert get_preset("photo").working_pixels == 250_000
     assert get_preset("fluorescence").working_pixels == 0
+
+
+def test_contracting_regions_without_pixels_changes_no_segmentation():
+    # Reference: the hierarchy with the empty regions kept, whose labels_at(t) is by definition
+    # the components of the base graph with edges of level <= t; contracting a region that owns
+    # no pixels must give the same pixels at every level and an exact region count.
+    rng = np.random.default_rng(5)
+    e = ndimage_smooth(rng.random((40, 50)))
+    h = boundary_hierarchy(e)
+    base = h.base_labels.copy()
+    # empty a few regions: give their pixels to the neighbour on their left/top
+    victims = rng.choice(np.arange(2, h.n_base + 1), size=min(6, h.n_base - 1), replace=False)
+    for v in victims:
+        ys, xs = np.nonzero(base == v)
+        base[ys, xs] = (
+            base[ys, np.maximum(xs.min() - 1, 0)]
+            if xs.min() > 0
+            else base[np.maximum(ys.min() - 1, 0), xs]
+        )
+    h0 = replace(h, base_labels=base)
+    h1 = _drop_empty_regions(h0)
+    assert h1.n_base == len(np.unique(base)) == len(np.unique(h1.base_labels))
+    for t in np.unique(np.concatenate([[0.0], h.edge_levels, [2.0]])):
+        np.testing.assert_array_equal(h1.labels_at(t), h0.labels_at(t))
+    assert len(h1.merge_levels) == h1.n_base - 1
+
+
+def ndimage_smooth(x):
+    from scipy import ndimage
+
+    return ndimage.gaussian_filter(x, 2.0)
