@@ -151,6 +151,19 @@ def edge_guide(image: np.ndarray) -> np.ndarray:
     return ndimage.gaussian_filter(np.sqrt(total), 1.0)
 
 
+def _union_find(n: int):
+    """``find`` with path halving over a parent list of ``n`` singletons (loops over regions)."""
+    parent = list(range(n))
+
+    def find(a: int) -> int:
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    return find, parent
+
+
 def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     """Level at which each pair of base regions first lies in one region (the ultrametric).
 
@@ -163,13 +176,7 @@ def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarra
     out = np.full(len(pairs), np.inf)
     if len(pairs) == 0:
         return out
-    parent = list(range(n))
-
-    def find(a: int) -> int:
-        while parent[a] != a:
-            parent[a] = parent[parent[a]]
-            a = parent[a]
-        return a
+    find, parent = _union_find(n)
 
     pending: dict[int, list[int]] = {}
     for q, (a, b) in enumerate(pairs.tolist()):
@@ -201,15 +208,8 @@ def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarra
 
 
 def _kruskal(n: int, edges: np.ndarray, levels: np.ndarray):
-    """Union-find replay of the edges in level order: (parent array, levels of the joins)."""
-    parent = np.arange(n)
-
-    def find(a: int) -> int:
-        while parent[a] != a:
-            parent[a] = parent[parent[a]]
-            a = parent[a]
-        return a
-
+    """Union-find replay of the edges in level order: (parent list, levels of the joins)."""
+    find, parent = _union_find(n)
     joins = []
     for k in np.argsort(levels, kind="stable").tolist():
         a, b = find(int(edges[k, 0])), find(int(edges[k, 1]))
