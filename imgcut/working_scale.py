@@ -22,6 +22,9 @@ from .hierarchy import RegionHierarchy, _border_pairs
 
 __all__ = ["working_scale", "downsample_image", "edge_guide", "upsample_hierarchy"]
 
+#: Shortest side, in pixels, of a working-size image (long thin strips are not shrunk below it).
+MIN_SIDE = 32
+
 
 def working_scale(shape: tuple[int, ...], working_pixels: int) -> float:
     """Resampling factor that brings an image to about ``working_pixels`` pixels (≤ 1).
@@ -36,7 +39,8 @@ def working_scale(shape: tuple[int, ...], working_pixels: int) -> float:
     Returns
     -------
     float
-        ``s = sqrt(working_pixels / (H · W))`` when the image is larger, else 1.0.
+        ``s = sqrt(working_pixels / (H · W))`` when the image is larger, else 1.0; never so
+        small that the shorter side drops below :data:`MIN_SIDE` pixels.
 
     Raises
     ------
@@ -55,7 +59,9 @@ def working_scale(shape: tuple[int, ...], working_pixels: int) -> float:
     n = int(shape[0]) * int(shape[1])
     if working_pixels == 0 or n <= working_pixels:
         return 1.0
-    return float(np.sqrt(working_pixels / n))
+    # never thinner than MIN_SIDE pixels: a long strip keeps (more of) its resolution
+    floor = min(1.0, MIN_SIDE / max(1, min(int(shape[0]), int(shape[1]))))
+    return float(max(np.sqrt(working_pixels / n), floor))
 
 
 def downsample_image(image: np.ndarray, scale: float) -> np.ndarray:

@@ -25,6 +25,8 @@ def test_working_scale_closed_form_and_no_upsampling():
     assert working_scale((2000, 3000, 3), 150_000) == pytest.approx(np.sqrt(150_000 / 6e6))
     assert working_scale((321, 481), 250_000) == 1.0
     assert working_scale((4000, 4000), 0) == 1.0
+    assert working_scale((1_000_000, 1), 250_000) == 1.0  # a strip keeps its one pixel
+    assert working_scale((100_000, 40), 250_000) == pytest.approx(32 / 40)  # MIN_SIDE
     with pytest.raises(ValueError, match="working_pixels"):
         working_scale((10, 10), -1)
 
