@@ -173,7 +173,9 @@ class SegmentOptions:
     (recursive method only), ``method``, ``kway_method``,
     ``radius``, ``cue``, ``sigma_feature``, ``sigma_distance``, ``sigma_edge``, ``min_area``,
     ``connected``, ``solver``, ``tol``, ``maxiter``, ``seed``, ``n_eigenvectors``,
-    ``memory_budget`` (bytes), ``scale`` (one of `SCALES`; ``"multi"`` needs method kway).
+    ``memory_budget`` (bytes), ``scale`` (one of `SCALES`; ``"multi"`` needs method kway),
+    ``working_pixels`` (method boundary: the working size of large photographs, None = the
+    preset's, 0 = full resolution; see :mod:`imgcut.working_scale`).
     ``mode="objects"`` (passed to :func:`imgcut.objects.segment_objects`): ``object_diameter``,
     ``pixel_size``, ``min_area``, ``small_objects``, ``exclude_border``, ``foreground``,
     ``max_ncut``, ``radius``, ``seed``; the other segmentation fields are not used.
@@ -215,6 +217,7 @@ class SegmentOptions:
     n_eigenvectors: int | None = None
     memory_budget: int | None = None
     scale: str = DEFAULT_SCALE
+    working_pixels: int | None = None
     mode: str = "regions"
     object_diameter: float | None = None
     pixel_size: float | None = None
@@ -474,6 +477,19 @@ def _check(o: SegmentOptions) -> None:
         o.plane,
     )
     need(integer(o.max_pixels, 1), "max_pixels", "an integer ≥ 1", o.max_pixels)
+    if o.working_pixels is not None:
+        need(
+            integer(o.working_pixels, 0),
+            "working_pixels",
+            "an integer ≥ 0 (0: full resolution)",
+            o.working_pixels,
+        )
+        need(
+            o.mode == "regions" and o.method in ("auto", "boundary"),
+            "working_pixels",
+            "used by method boundary only (with --method auto or boundary, mode regions)",
+            o.working_pixels,
+        )
     choice("label_format", LABEL_FORMATS)
     need(
         o.fill is None or (number(o.fill) and 0 <= o.fill <= 1),
@@ -699,8 +715,11 @@ def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySe
     from imgcut.presets import get_preset
     from imgcut.working_scale import working_scale
 
+    preset = get_preset(BOUNDARY_PRESET)
+    if options.working_pixels is not None:
+        preset = get_preset(preset, working_pixels=options.working_pixels)
     start = time.perf_counter()
-    hierarchy = image_hierarchy(image, preset=BOUNDARY_PRESET, seed=options.seed)
+    hierarchy = image_hierarchy(image, preset=preset, seed=options.seed)
     built = time.perf_counter()
     if options.n_regions in (None, "default"):  # the preset's tuned level
         level = hierarchy.default_level
@@ -711,14 +730,14 @@ def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySe
     record = {
         "method": "boundary",
         "preset": BOUNDARY_PRESET,
-        "preset_params": get_preset(BOUNDARY_PRESET).as_dict(),
+        "preset_params": preset.as_dict(),
         "level": level,
         "n_regions_asked": options.n_regions,
         "n_regions": int(labels.max()) if labels.size else 0,
         "n_base_regions": hierarchy.n_base,
         # < 1: the hierarchy was built on a copy of the image resampled by this factor
         # (the preset's working_pixels) and its borders re-drawn at full resolution
-        "working_scale": working_scale(image.shape, get_preset(BOUNDARY_PRESET).working_pixels),
+        "working_scale": working_scale(image.shape, preset.working_pixels),
         "timings": {
             "hierarchy": built - start,
             "labels": time.perf_counter() - built,

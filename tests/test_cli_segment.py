@@ -585,3 +585,41 @@ def test_boundary_refuses_options_it_does_not_use(work):
     result = run(work / "halves.png", "-o", work / "o", "--method", "boundary", "--radius", "3")
     assert_one_line_error(result, 2, "--radius is not used by method boundary")
     assert snapshot(work) == before
+
+
+def _colour_patches_large() -> np.ndarray:
+    """A 96 x 128 RGB image: the three thirds of ``_colour_patches`` at twice the size."""
+    return np.repeat(np.repeat(_colour_patches(), 2, axis=0), 2, axis=1)
+
+
+def test_working_pixels_resamples_large_photos_and_is_recorded(work):
+    # 96 x 128 = 12 288 pixels; --working-pixels 3072 asks for a copy at half the side
+    img = _colour_patches_large()
+    Image.fromarray(img).save(work / "rgb.png")
+    result = run(work / "rgb.png", "-o", work / "o", "-k", "3", "--working-pixels", "3072")
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "o" / "rgb.json").read_text())
+    assert rec["segmentation"]["working_scale"] == pytest.approx(0.5)
+    assert rec["segmentation"]["preset_params"]["working_pixels"] == 3072
+    assert rec["options"]["working_pixels"] == 3072
+    labels = np.asarray(Image.open(work / "o" / "rgb.labels.png"))
+    assert labels.shape == (96, 128) and labels.max() == 3
+    # the borders land on the colour edges of the full-size image (columns 41|42 and 83|84)
+    cols = set(np.flatnonzero(np.any(labels[:, :-1] != labels[:, 1:], axis=0)).tolist())
+    assert cols <= {40, 41, 42, 82, 83, 84}
+    # 0 = full resolution
+    result = run(work / "rgb.png", "-o", work / "f", "-k", "3", "--working-pixels", "0")
+    assert result.exit_code == 0, result.stderr
+    rec = json.loads((work / "f" / "rgb.json").read_text())
+    assert rec["segmentation"]["working_scale"] == 1.0
+
+
+def test_working_pixels_is_refused_where_it_cannot_apply(work):
+    before = snapshot(work)
+    result = run(work / "halves.png", "-o", work / "o", "--working-pixels", "-5")
+    assert_one_line_error(result, 2, "--working-pixels must be an integer ≥ 0")
+    result = run(
+        work / "halves.png", "-o", work / "o", "--method", "recursive", "--working-pixels", "0"
+    )
+    assert_one_line_error(result, 2, "--working-pixels must be used by method boundary only")
+    assert snapshot(work) == before

@@ -70,6 +70,7 @@ FLAGS = {
     "n_eigenvectors": "--n-eigenvectors",
     "memory_budget": "--memory-budget",
     "scale": "--scale",
+    "working_pixels": "--working-pixels",
     "mode": "--mode",
     "object_diameter": "--object-diameter",
     "pixel_size": "--pixel-size",
@@ -455,7 +456,7 @@ def _segmentation_options(
         typer.Option(
             "--tol",
             rich_help_panel=PANEL_GRAPH,
-            help="Eigenvector residual tolerance [default: 1e-5 single-scale, 3e-2 multiscale].",
+            help="Eigenvector residual tolerance (default: 1e-5 single-scale, 3e-2 multiscale).",
         ),
     ] = None,
     maxiter: Annotated[
@@ -487,6 +488,18 @@ def _segmentation_options(
             help="Seed of every random start; same image + options + seed = same labels.",
         ),
     ] = 0,
+    working_pixels: Annotated[
+        int | None,
+        typer.Option(
+            "--working-pixels",
+            rich_help_panel=PANEL_CUT,
+            metavar="N",
+            help="Method boundary: a photograph with more pixels is segmented on a copy of "
+            "about N pixels and mapped back with its borders re-drawn at full resolution "
+            "(default: 250000, near the size the photo preset was tuned at); 0: full "
+            "resolution (slower, more memory).",
+        ),
+    ] = None,
     mode: Annotated[
         str,
         typer.Option(
