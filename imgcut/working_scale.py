@@ -372,7 +372,8 @@ def upsample_hierarchy(
         if markers.max() > 0:  # flood the band only (plus its rim of markers)
             mask = ndimage.binary_dilation(band, structure=np.ones((3, 3), bool))
             flooded = watershed(guide, markers=markers, mask=mask)
-            up = np.where(band, flooded, up).astype(np.int32)
+            # a band pixel no marker reaches (none in practice) keeps its upsampled label
+            up = np.where(band & (flooded > 0), flooded, up).astype(np.int32)
     up = up.astype(np.int32, copy=False)
     edges, levels, strength = h.edges, h.edge_levels, h.edge_strength
     la, lb = _border_pairs(up)[:2]
@@ -388,7 +389,7 @@ def upsample_hierarchy(
             ok = np.isfinite(lev)
             edges = np.concatenate([edges, pairs[ok]])
             levels = np.concatenate([levels, lev[ok]])
-            strength = np.concatenate([strength, lev[ok]])
+            strength = np.concatenate([strength, lev[ok]])  # no border of their own at h
     boundary = None
     if h.boundary is not None:
         boundary = resize(np.asarray(h.boundary, dtype=np.float64), shape, order=1)
