@@ -16,9 +16,17 @@ Scores: covering, PRI and VoI (:func:`imgcut.metrics.region_scores`, the mean ov
 the preset's default level, and ODS over the preset's ``level_sweep``; CPU seconds of
 ``image_hierarchy`` per image.  Train images only (the tuning split), so val stays untouched.
 
+``--scene H,W`` instead segments the project's own synthetic scene
+(``scripts/make_sample_images.make_scene``) drawn at ``H × W``: its textures keep their pixel
+periods (stripes of 6 px, checks of 8 px) while the objects grow, as in a camera photograph.
+Both modes run with ``imgcut.segment``'s boundary path at the preset's default level, each in
+its own process; ``--plot PATH`` writes the two overlays side by side.
+
 Usage::
 
     OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --images 20 --factor 2
+    OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --scene 1800,2400 \
+        --plot docs/images/working_scale.png
 """
 
 from __future__ import annotations
@@ -69,13 +77,106 @@ print(json.dumps({"rows": rows, "cpu": cpu, "peak_mb": peak, "levels": levels,
 """
 
 
+_SCENE_CHILD = r"""
+import json, resource, sys, time
+import numpy as np
+sys.path.insert(0, sys.argv[4])
+from make_sample_images import make_scene
+from imgcut.hierarchy import image_hierarchy
+from imgcut.presets import get_preset
+mode, h, w = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+img = make_scene(shape=(h, w))
+preset = get_preset("photo", working_pixels=0) if mode == "full" else get_preset("photo")
+c0 = time.process_time()
+tree = image_hierarchy(img, preset=preset, seed=0)
+labels = tree.labels_at()
+cpu = time.process_time() - c0
+np.save(sys.argv[5], labels)
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+print(json.dumps({"cpu": cpu, "peak_mb": peak, "regions": int(labels.max())}))
+"""
+
+
+def _scene(shape: tuple[int, int], plot: str | None) -> None:
+    """Both modes on the synthetic scene at ``shape``: time, memory, regions, picture."""
+    import tempfile
+
+    root = Path(__file__).resolve().parents[1]
+    found = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for mode in ("working", "full"):
+            path = Path(tmp) / f"{mode}.npy"
+            out = subprocess.run(
+                [
+                    sys.executable,
+                    "-c",
+                    _SCENE_CHILD,
+                    mode,
+                    str(shape[0]),
+                    str(shape[1]),
+                    str(root / "scripts"),
+                    str(path),
+                ],
+                capture_output=True,
+                text=True,
+            )
+            if out.returncode:
+                raise SystemExit(f"mode {mode} failed:\n{out.stderr[-2000:]}")
+            found[mode] = json.loads(out.stdout.strip().splitlines()[-1])
+            found[mode]["labels"] = np.load(path)
+            r = found[mode]
+            print(
+                f"{mode:8s} {shape[0]}x{shape[1]}: {r['regions']} regions, "
+                f"{r['cpu']:.1f} s CPU, peak {r['peak_mb']:.0f} MB",
+                flush=True,
+            )
+    if plot:
+        import matplotlib
+
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+
+        sys.path.insert(0, str(root / "scripts"))
+        from make_sample_images import make_scene
+
+        from imgcut.export import render_overlay
+
+        img = make_scene(shape=shape)
+        fig, axes = plt.subplots(1, 2, figsize=(12, 4.8))
+        for ax, mode, title in zip(
+            axes, ("full", "working"), ("full resolution", "working size (default)"), strict=True
+        ):
+            r = found[mode]
+            ax.imshow(render_overlay(img, r["labels"]))
+            ax.set_title(
+                f"{title}: {r['regions']} regions, {r['cpu']:.0f} s CPU, "
+                f"{r['peak_mb'] / 1024:.1f} GB",
+                fontsize=10,
+            )
+            ax.set_axis_off()
+        fig.suptitle(
+            f"photo preset on a {shape[0]} × {shape[1]} synthetic scene "
+            "(textures of 6–8 px periods), default level",
+            fontsize=11,
+        )
+        fig.tight_layout()
+        fig.savefig(plot, dpi=80)
+        print(f"wrote {plot}")
+
+
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--images", type=int, default=20, help="train images (every k-th id)")
     ap.add_argument("--factor", type=int, default=2, help="integer enlargement factor")
     ap.add_argument("--modes", default="native,working,full")
     ap.add_argument("--out", help="write the results as JSON here")
+    ap.add_argument("--scene", help="H,W: the synthetic scene at this size instead of BSDS")
+    ap.add_argument("--plot", help="with --scene: write the two overlays to this PNG")
     args = ap.parse_args(argv)
+    if args.scene:
+        h, w = (int(v) for v in args.scene.split(","))
+        _scene((h, w), args.plot)
+        return
     root = DATA / "train"
     if not root.exists():
         raise SystemExit(f"BSDS500 train not found at {root}")
