@@ -627,7 +627,14 @@ def image_hierarchy(
 
     p = get_preset(preset)
     img = np.asarray(image)
-    if img.ndim in (2, 3) and p.working_pixels:
+    resamplable = (
+        img.ndim in (2, 3)
+        and img.size > 0
+        and img.dtype != bool
+        and np.issubdtype(img.dtype, np.number)
+        and not np.iscomplexobj(img)
+    )  # anything else goes on to the cues, which reject it with their own message
+    if resamplable and p.working_pixels:
         from .working_scale import working_scale
 
         s = working_scale(img.shape, p.working_pixels)

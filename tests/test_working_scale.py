@@ -188,3 +188,15 @@ def ndimage_smooth(x):
     from scipy import ndimage
 
     return ndimage.gaussian_filter(x, 2.0)
+
+
+def test_invalid_large_images_are_refused_as_small_ones_are():
+    # a boolean image is not an image the cues accept, whatever its size
+    preset = get_preset("photo", working_pixels=100, ensemble=())
+    for shape in ((8, 9, 3), (60, 70, 3)):
+        with pytest.raises(ValueError, match="real array"):
+            image_hierarchy(np.zeros(shape, dtype=bool), preset=preset)
+    nan = np.zeros((60, 70, 3))
+    nan[3, 3, 0] = np.nan
+    with pytest.raises(ValueError, match="NaN"):
+        image_hierarchy(nan, preset=preset)
