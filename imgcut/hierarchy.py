@@ -613,6 +613,9 @@ def image_hierarchy(
     ``oriented`` flag each border is measured across its own orientation.  A preset with a
     non-empty ``ensemble`` builds one such hierarchy per member from shared cues and returns
     the hierarchy of their averaged contour maps (:func:`imgcut.ensemble.ensemble_image_hierarchy`).
+    An image with more pixels than the preset's ``working_pixels`` (250 000 for ``"photo"``)
+    is processed on an anti-aliased copy of about that size and the hierarchy mapped back, its
+    borders re-drawn on full-resolution edges (:func:`imgcut.working_scale.upsample_hierarchy`).
 
     Examples
     --------
