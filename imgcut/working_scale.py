@@ -157,19 +157,6 @@ def edge_guide(image: np.ndarray) -> np.ndarray:
     return ndimage.gaussian_filter(np.sqrt(total), 1.0)
 
 
-def _union_find(n: int):
-    """``find`` with path halving over a parent list of ``n`` singletons (loops over regions)."""
-    parent = list(range(n))
-
-    def find(a: int) -> int:
-        while parent[a] != a:
-            parent[a] = parent[parent[a]]
-            a = parent[a]
-        return a
-
-    return find, parent
-
-
 def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     """Level at which each pair of base regions first lies in one region (the ultrametric).
 
@@ -179,50 +166,43 @@ def _join_levels(n: int, edges: np.ndarray, levels: np.ndarray, pairs: np.ndarra
     answered with the merge's level (smaller-into-larger, so each pair moves O(log q) times).
     Pairs never joined get ``inf``.
     """
+    from scipy.cluster.hierarchy import DisjointSet
+
     out = np.full(len(pairs), np.inf)
     if len(pairs) == 0:
         return out
-    find, parent = _union_find(n)
-
+    sets = DisjointSet(range(n))
     pending: dict[int, list[int]] = {}
     for q, (a, b) in enumerate(pairs.tolist()):
         pending.setdefault(a, []).append(q)
         pending.setdefault(b, []).append(q)
     pa, pb = pairs[:, 0].tolist(), pairs[:, 1].tolist()
     for k in np.argsort(levels, kind="stable").tolist():
-        a, b = find(int(edges[k, 0])), find(int(edges[k, 1]))
-        if a == b:
+        a, b = sets[int(edges[k, 0])], sets[int(edges[k, 1])]
+        if not sets.merge(a, b):
             continue
-        la, lb = pending.get(a, []), pending.get(b, [])
+        root = sets[a]
+        la, lb = pending.pop(a, []), pending.pop(b, [])
         if len(la) < len(lb):
-            a, b, la, lb = b, a, lb, la
-        parent[b] = a
+            la, lb = lb, la
         level = float(levels[k])
-        keep = []
-        for q in lb:  # b's pairs: answered if the other end is now in the same component
-            if out[q] != np.inf:
-                continue
-            other = pb[q] if find(pa[q]) == a else pa[q]
-            if find(other) == a:
+        for q in lb:  # the smaller list: answered if both ends are now in one set
+            if out[q] == np.inf and sets.connected(pa[q], pb[q]):
                 out[q] = level
-            else:
-                keep.append(q)
-        la.extend(keep)
-        pending[a] = la
-        pending.pop(b, None)
+            elif out[q] == np.inf:
+                la.append(q)
+        pending[root] = la
     return out
 
 
 def _kruskal(n: int, edges: np.ndarray, levels: np.ndarray):
-    """Union-find replay of the edges in level order: (parent list, levels of the joins)."""
-    find, parent = _union_find(n)
-    joins = []
-    for k in np.argsort(levels, kind="stable").tolist():
-        a, b = find(int(edges[k, 0])), find(int(edges[k, 1]))
-        if a != b:
-            parent[max(a, b)] = min(a, b)
-            joins.append(float(levels[k]))
-    return parent, np.asarray(joins, dtype=np.float64)
+    """Levels at which the edges, replayed in level order, join two sets (Kruskal)."""
+    from scipy.cluster.hierarchy import DisjointSet
+
+    sets = DisjointSet(range(n))
+    order = np.argsort(levels, kind="stable").tolist()
+    joins = [float(levels[k]) for k in order if sets.merge(int(edges[k, 0]), int(edges[k, 1]))]
+    return np.asarray(joins, dtype=np.float64)
 
 
 def _drop_empty_regions(h: RegionHierarchy) -> RegionHierarchy:
@@ -280,7 +260,7 @@ def _drop_empty_regions(h: RegionHierarchy) -> RegionHierarchy:
     edges = np.stack([key[sel] // n, key[sel] % n], axis=1).astype(h.edges.dtype)
     levels, strength = levels[sel], strength[sel]
     base = (new_id[rep[h.base_labels - 1]] + 1).astype(np.int32)
-    _, merges = _kruskal(int(present.sum()), edges, levels)
+    merges = _kruskal(int(present.sum()), edges, levels)
     return replace(
         h,
         base_labels=base,
