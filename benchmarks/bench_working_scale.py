@@ -27,6 +27,10 @@ Usage::
     OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --images 20 --factor 2
     OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --scene 1800,2400 \
         --plot docs/images/working_scale.png
+    OMP_NUM_THREADS=1 python benchmarks/bench_working_scale.py --scene 1926,2886 --end-to-end
+
+``--end-to-end`` times the ``imgcut segment`` command itself on the scene saved as a PNG, with
+and without ``--working-pixels 0`` (wall seconds, peak resident memory of the command).
 """
 
 from __future__ import annotations
@@ -95,6 +99,55 @@ np.save(sys.argv[5], labels)
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 print(json.dumps({"cpu": cpu, "peak_mb": peak, "regions": int(labels.max())}))
 """
+
+
+_COMMAND_CHILD = r"""
+import json, resource, subprocess, sys, time
+t0 = time.perf_counter()
+done = subprocess.run(sys.argv[1:], capture_output=True, text=True)
+wall = time.perf_counter() - t0
+peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
+print(json.dumps({"rc": done.returncode, "wall": wall, "peak_mb": peak, "err": done.stderr[-500:]}))
+"""
+
+
+def _end_to_end(shape: tuple[int, int]) -> None:
+    """The ``imgcut segment`` command on the scene saved as PNG: wall time and peak memory.
+
+    Each mode runs in a fresh wrapper process, so its peak resident memory is that of the one
+    command it started (``RUSAGE_CHILDREN``); the command is the installed ``imgcut`` entry
+    point, with its own process settings, reading, segmenting, drawing and writing.
+    """
+    import shutil
+    import tempfile
+
+    from PIL import Image
+
+    root = Path(__file__).resolve().parents[1]
+    sys.path.insert(0, str(root / "scripts"))
+    from make_sample_images import make_scene
+
+    exe = shutil.which("imgcut")
+    if exe is None:
+        raise SystemExit("the imgcut command is not installed (pip install -e .)")
+    with tempfile.TemporaryDirectory() as tmp:
+        image = Path(tmp) / "scene.png"
+        Image.fromarray(make_scene(shape=shape)).save(image)
+        for mode, extra in (("working", []), ("full", ["--working-pixels", "0"])):
+            cmd = [exe, "segment", str(image), "--out", str(Path(tmp) / mode), "-q", *extra]
+            out = subprocess.run(
+                [sys.executable, "-c", _COMMAND_CHILD, *cmd], capture_output=True, text=True
+            )
+            r = json.loads(out.stdout.strip().splitlines()[-1])
+            if r["rc"]:
+                raise SystemExit(f"imgcut segment ({mode}) failed: {r['err']}")
+            record = json.loads((Path(tmp) / mode / "scene.json").read_text())
+            print(
+                f"imgcut segment, {mode:8s} {shape[0]}x{shape[1]}: "
+                f"{record['segmentation']['n_regions']} regions, {r['wall']:.1f} s wall, "
+                f"peak {r['peak_mb']:.0f} MB",
+                flush=True,
+            )
 
 
 def _scene(shape: tuple[int, int], plot: str | None) -> None:
@@ -172,10 +225,18 @@ def main(argv=None) -> None:
     ap.add_argument("--out", help="write the results as JSON here")
     ap.add_argument("--scene", help="H,W: the synthetic scene at this size instead of BSDS")
     ap.add_argument("--plot", help="with --scene: write the two overlays to this PNG")
+    ap.add_argument(
+        "--end-to-end",
+        action="store_true",
+        help="with --scene: time the imgcut segment command itself (wall, peak memory)",
+    )
     args = ap.parse_args(argv)
     if args.scene:
         h, w = (int(v) for v in args.scene.split(","))
-        _scene((h, w), args.plot)
+        if args.end_to_end:
+            _end_to_end((h, w))
+        else:
+            _scene((h, w), args.plot)
         return
     root = DATA / "train"
     if not root.exists():
