@@ -29,6 +29,8 @@ from pathlib import Path
 import numpy as np
 from scipy.optimize import minimize
 
+from .cues import boundary_strength
+
 __all__ = [
     "BoundaryModel",
     "oriented_features",
@@ -225,10 +227,7 @@ def apply_boundary_model(model: BoundaryModel, cues, combined: np.ndarray) -> np
     feats = oriented_features(cues.tensors[[index[n] for n in model.cue_names]], combined)
     prob = boundary_probability(model, feats)
     target = np.interp(prob, model.map_probability, model.map_strength)
-    t = combined.astype(np.float64)
-    half_tr = 0.5 * (t[0] + t[2])
-    lam = half_tr + np.sqrt(np.maximum(0.25 * (t[0] - t[2]) ** 2 + t[1] ** 2, 0.0))
-    strength = np.sqrt(np.clip(lam, 0.0, 1.0))
+    strength = boundary_strength(combined)
     gain = (target / np.maximum(strength, 1e-6)) ** 2
     return np.clip(combined * gain.astype(np.float32), -1.0, 1.0).astype(np.float32)
 
