@@ -182,17 +182,17 @@ def boundary_probability(model: BoundaryModel, features: np.ndarray) -> np.ndarr
     >>> boundary_probability(m, np.array([[0.0, 0, 0], [1.0, 0, 0]])).round(3).tolist()
     [0.119, 0.881]
     """
-    x = np.asarray(features, dtype=np.float64)
+    x = np.asarray(features)
     if x.shape[-1] != model.mean.shape[0]:
         raise ValueError(
             f"model {model.name!r} expects {model.mean.shape[0]} features; got {x.shape[-1]}"
         )
     flat = x.reshape(-1, x.shape[-1])
     p = np.empty(flat.shape[0])
-    for start in range(0, flat.shape[0], 1 << 16):  # bounded memory for megapixel images
-        p[start : start + (1 << 16)] = 0.5 * (
-            1.0 + np.tanh(0.5 * _logits(model, flat[start : start + (1 << 16)]))
-        )
+    step = 1 << 16  # float64 copies one block at a time: bounded memory for megapixel images
+    for start in range(0, flat.shape[0], step):
+        block = flat[start : start + step].astype(np.float64)
+        p[start : start + step] = 0.5 * (1.0 + np.tanh(0.5 * _logits(model, block)))
     return p.reshape(x.shape[:-1])
 
 
