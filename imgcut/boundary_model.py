@@ -40,6 +40,7 @@ __all__ = [
     "fit_boundary_model",
     "fit_strength_map",
     "load_boundary_model",
+    "model_digest",
     "save_boundary_model",
     "PACKAGED_MODELS",
 ]
@@ -438,6 +439,31 @@ def _load(path: str) -> BoundaryModel:
     return model
 
 
+def _model_path(name: str | os.PathLike[str]) -> Path:
+    if str(name) in PACKAGED_MODELS:
+        return MODEL_DIR / f"{name}.json"
+    path = Path(name)
+    if not path.is_file():
+        raise ValueError(
+            f"boundary model {str(name)!r} is neither a packaged model "
+            f"({', '.join(PACKAGED_MODELS)}) nor a file"
+        )
+    return path.resolve()
+
+
+def model_digest(name: str | os.PathLike[str]) -> str:
+    """SHA-256 of a model's file (packaged name or path), for run records.
+
+    Examples
+    --------
+    >>> len(model_digest("photo-bsds500-train"))
+    64
+    """
+    import hashlib
+
+    return hashlib.sha256(_model_path(name).read_bytes()).hexdigest()
+
+
 def load_boundary_model(name: str | os.PathLike[str]) -> BoundaryModel:
     """A packaged model by name (:data:`PACKAGED_MODELS`) or a model JSON file by path.
 
@@ -459,12 +485,4 @@ def load_boundary_model(name: str | os.PathLike[str]) -> BoundaryModel:
     >>> load_boundary_model("photo-bsds500-train").n_hidden
     16
     """
-    if str(name) in PACKAGED_MODELS:
-        return _load(str(MODEL_DIR / f"{name}.json"))
-    path = Path(name)
-    if not path.is_file():
-        raise ValueError(
-            f"boundary model {str(name)!r} is neither a packaged model "
-            f"({', '.join(PACKAGED_MODELS)}) nor a file"
-        )
-    return _load(str(path.resolve()))
+    return _load(str(_model_path(name)))

@@ -708,6 +708,21 @@ class _BoundarySegmentation:
         return self.record
 
 
+def _boundary_model_record(image: np.ndarray, preset) -> dict[str, Any] | None:
+    """Which learned boundary model the hierarchy used (None: the preset has none)."""
+    if not preset.boundary_model:
+        return None
+    from imgcut.boundary_model import model_digest
+
+    return {
+        "name": preset.boundary_model,
+        "sha256": model_digest(preset.boundary_model),
+        # the model reads CIE Lab colour cues, which only 3-channel images have
+        # (imgcut.cues.local_cues); other images keep the preset's hand cue weights
+        "applied": bool(image.ndim == 3 and image.shape[2] == 3),
+    }
+
+
 def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySegmentation:
     """Labels from the region hierarchy: ``n_regions`` regions, or (automatic count or no
     count given) the preset's tuned level."""
@@ -738,6 +753,7 @@ def _boundary_segment(image: np.ndarray, options: SegmentOptions) -> _BoundarySe
         # < 1: the hierarchy was built on a copy of the image resampled by this factor
         # (the preset's working_pixels) and its borders re-drawn at full resolution
         "working_scale": working_scale(image.shape, preset.working_pixels),
+        "boundary_model": _boundary_model_record(image, preset),
         "timings": {
             "hierarchy": built - start,
             "labels": time.perf_counter() - built,

@@ -475,3 +475,9 @@ def test_boundary_method_on_a_colour_file_records_why(tmp_path):
     np.testing.assert_array_equal(labels, expected)
     assert report.record["segmentation"]["timings"]["hierarchy"] > 0
     assert report.record["segmentation"]["working_scale"] == 1.0  # small: full resolution
+    # the learned boundary model, identified by the hash of its file
+    from imgcut.boundary_model import MODEL_DIR
+
+    bm = report.record["segmentation"]["boundary_model"]
+    digest = hashlib.sha256((MODEL_DIR / f"{bm['name']}.json").read_bytes()).hexdigest()
+    assert bm["sha256"] == digest and bm["applied"] is True
