@@ -142,6 +142,17 @@ class BoundaryPreset:
     ensemble_dilation: int = 3
     working_pixels: int = 0
 
+    def __post_init__(self) -> None:
+        for item in self.model_sigmas:
+            family, sigmas = item if len(item) == 2 else (None, ())
+            if family not in ("brightness", "colour", "texture") or not all(
+                isinstance(v, (int, float)) and v > 0 for v in sigmas
+            ):
+                raise ValueError(
+                    "model_sigmas must hold (family, positive scales) pairs with family "
+                    f"brightness, colour or texture; got {item!r}"
+                )
+
     def weights(self) -> dict[str, float]:
         """Cue weights as a dict for :func:`imgcut.cues.combine_cues`.
 

@@ -121,3 +121,12 @@ def test_presets_with_an_ensemble_stay_hashable_printable_and_round_trip():
     for q in presets.PRESETS.values():
         hash(q)
     assert presets.PRESETS["fluorescence"].ensemble == ()
+
+
+def test_model_sigmas_are_checked_and_reach_the_cues():
+    p = presets.get_preset("photo", model_sigmas=(("texture", (3.0,)),))
+    assert p.cue_options()["texture_sigmas"] == tuple(sorted((*p.texture_sigmas, 3.0)))
+    assert p.weights()["texture@3"] == 0.0  # a model input only, not in the hand combination
+    for bad in ((("hue", (2.0,)),), (("colour", (0.0,)),), (("colour",),)):
+        with pytest.raises(ValueError, match="model_sigmas"):
+            presets.get_preset("photo", model_sigmas=bad)
