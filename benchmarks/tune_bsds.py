@@ -33,7 +33,8 @@ from PIL import Image
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
-from imgcut.cues import combine_cues, local_cues, quantised_channels
+from imgcut.boundary_model import apply_preset_model
+from imgcut.cues import CueTensors, combine_cues, local_cues, quantised_channels
 from imgcut.ensemble import ensemble_hierarchy, member_presets
 from imgcut.hierarchy import merge_regions, oversegment
 from imgcut.presets import get_preset
@@ -75,8 +76,6 @@ def _cues(image_id: str, cache: Path):
 
 def _combine(tensors, names, preset):
     """The preset's weighted tensor from the cached superset of scales."""
-    from imgcut.cues import CueTensors
-
     wanted = set()
     for cue, sig in (
         ("brightness", preset.brightness_sigmas),
@@ -138,13 +137,9 @@ def _sweep_scores(h, tables, levels):
 
 def _single(image_id, tensors, names, tex, preset):
     """The preset's hierarchy of one image from its cached cues (as ``image_hierarchy``)."""
-    combined = _combine(tensors, names, preset)
-    if preset.boundary_model:
-        from imgcut.boundary_model import apply_boundary_model, load_boundary_model
-        from imgcut.cues import CueTensors
-
-        cues = CueTensors(names, tensors, None)
-        combined = apply_boundary_model(load_boundary_model(preset.boundary_model), cues, combined)
+    combined = apply_preset_model(
+        preset, CueTensors(names, tensors, None), _combine(tensors, names, preset)
+    )
     local, strength = _contrast_normalise(combined, preset)
     base = oversegment(strength, smooth=preset.watershed_smooth)
     features = None

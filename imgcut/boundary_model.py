@@ -34,9 +34,10 @@ from .cues import boundary_strength
 __all__ = [
     "BoundaryModel",
     "oriented_features",
-    "feature_names",
     "boundary_probability",
     "apply_boundary_model",
+    "apply_preset_model",
+    "model_applies",
     "fit_boundary_model",
     "fit_strength_map",
     "load_boundary_model",
@@ -89,22 +90,6 @@ class BoundaryModel:
     def n_hidden(self) -> int:
         """Hidden units (0 for logistic regression)."""
         return int(self.hidden_weights.shape[1]) if self.hidden_weights.size else 0
-
-
-def feature_names(cue_names) -> tuple[str, ...]:
-    """Names of the model inputs for the given cue entries (see :func:`oriented_features`).
-
-    Examples
-    --------
-    >>> feature_names(("brightness@2",))
-    ('across:brightness@2', 'along:brightness@2', 'combined:smaller')
-    """
-    cue_names = tuple(cue_names)
-    return (
-        tuple(f"across:{n}" for n in cue_names)
-        + tuple(f"along:{n}" for n in cue_names)
-        + ("combined:smaller",)
-    )
 
 
 def oriented_features(tensors: np.ndarray, combined: np.ndarray) -> np.ndarray:
@@ -218,6 +203,18 @@ def apply_boundary_model(model: BoundaryModel, cues, combined: np.ndarray) -> np
     ------
     ValueError
         If a cue the model reads is missing.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from imgcut.cues import CueTensors, boundary_strength
+    >>> t = np.zeros((1, 3, 1, 1), np.float32); t[0, 0] = 0.25  # strength 0.5 across x
+    >>> m = BoundaryModel("demo", ("b@1",), np.zeros(3), np.ones(3), np.zeros((3, 0)),
+    ...                   np.zeros(0), np.array([4.0, 0, 0]), -2.0, np.array([0.0, 1]),
+    ...                   np.array([0.0, 1]))
+    >>> out = apply_boundary_model(m, CueTensors(("b@1",), t, None), t[0])
+    >>> round(float(boundary_strength(out)[0, 0]), 3)  # the probability at feature 0.5
+    0.5
     """
     index = {n: i for i, n in enumerate(cues.names)}
     missing = [n for n in model.cue_names if n not in index]
@@ -231,6 +228,66 @@ def apply_boundary_model(model: BoundaryModel, cues, combined: np.ndarray) -> np
     strength = boundary_strength(combined)
     gain = (target / np.maximum(strength, 1e-6)) ** 2
     return np.clip(combined * gain.astype(np.float32), -1.0, 1.0).astype(np.float32)
+
+
+def model_applies(model: BoundaryModel, channels) -> bool:
+    """Whether images with these cue channels hold every input of the model.
+
+    Parameters
+    ----------
+    model : BoundaryModel
+    channels : sequence of str
+        Scalar cue channels of the image (:func:`imgcut.cues.channel_names`); textons are
+        always computed.
+
+    Returns
+    -------
+    bool
+
+    Examples
+    --------
+    >>> from imgcut.cues import channel_names
+    >>> m = load_boundary_model("photo-bsds500-train")
+    >>> model_applies(m, channel_names((4, 4, 3), "lab")), model_applies(m, ("brightness",))
+    (True, False)
+    """
+    have = set(channels) | {"texture"}
+    return all(name.partition("@")[0] in have for name in model.cue_names)
+
+
+def apply_preset_model(preset, cues, combined: np.ndarray) -> np.ndarray:
+    """A preset's combined tensor through its boundary model, where the cues allow it.
+
+    Parameters
+    ----------
+    preset : imgcut.presets.BoundaryPreset
+    cues : imgcut.cues.CueTensors
+    combined : ndarray, shape (3, H, W)
+        ``combine_cues(cues, preset.weights())``.
+
+    Returns
+    -------
+    ndarray, shape (3, H, W)
+        :func:`apply_boundary_model` when the preset names a model and ``cues`` hold all its
+        inputs; ``combined`` unchanged otherwise (no model, or a grey or non-RGB image under
+        a colour model: the hand-weighted strength).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from imgcut.cues import CueTensors
+    >>> from imgcut.presets import get_preset
+    >>> t = np.zeros((1, 3, 2, 2), np.float32)
+    >>> grey, combined = CueTensors(("brightness@2",), t, None), t[0]
+    >>> apply_preset_model(get_preset("photo"), grey, combined) is combined  # hand weights
+    True
+    """
+    if not preset.boundary_model:
+        return combined
+    model = load_boundary_model(preset.boundary_model)
+    if not set(model.cue_names) <= set(cues.names):
+        return combined
+    return apply_boundary_model(model, cues, combined)
 
 
 def fit_boundary_model(
@@ -396,6 +453,14 @@ def save_boundary_model(
     ------
     FileExistsError
         If ``path`` exists and ``overwrite`` is False.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> m = load_boundary_model("photo-bsds500-train")
+    >>> path = save_boundary_model(m, pathlib.Path(tempfile.mkdtemp()) / "copy.json")
+    >>> load_boundary_model(path).cue_names == m.cue_names
+    True
     """
     from .io import atomic_write
 

@@ -25,6 +25,7 @@ from scipy import ndimage, sparse
 
 __all__ = [
     "CueTensors",
+    "channel_names",
     "filter_bank_responses",
     "textons",
     "histogram_gradient_tensor",
@@ -63,6 +64,32 @@ class CueTensors:
 
 
 # ----------------------------------------------------------------------------- input handling
+def channel_names(shape: tuple[int, ...], colour_space: str) -> tuple[str, ...]:
+    """Names of the scalar cue channels :func:`local_cues` makes from an image of this shape.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        ``(H, W)`` or ``(H, W, C)``.
+    colour_space : {"lab", "percentile"}
+
+    Returns
+    -------
+    tuple of str
+        ``("brightness", "colour_a", "colour_b")`` for a 3-channel image in ``"lab"``;
+        otherwise ``"brightness"`` then ``"channel_<c>"`` for every further channel.
+
+    Examples
+    --------
+    >>> channel_names((4, 5, 3), "lab"), channel_names((4, 5, 2), "lab")
+    (('brightness', 'colour_a', 'colour_b'), ('brightness', 'channel_1'))
+    """
+    n = 1 if len(shape) == 2 or shape[2] == 1 else int(shape[2])
+    if colour_space == "lab" and n == 3:
+        return ("brightness", "colour_a", "colour_b")
+    return ("brightness",) + tuple(f"channel_{c}" for c in range(1, n))
+
+
 def _channels(image: np.ndarray, colour_space: str) -> list[tuple[str, np.ndarray, tuple]]:
     """Split an image into scalar cue channels with their quantisation ranges."""
     img = np.asarray(image)
@@ -80,7 +107,8 @@ def _channels(image: np.ndarray, colour_space: str) -> list[tuple[str, np.ndarra
         f = f[..., 0]
     if colour_space not in ("lab", "percentile"):
         raise ValueError(f"colour_space must be 'lab' or 'percentile'; got {colour_space!r}")
-    if colour_space == "lab" and f.ndim == 3 and f.shape[2] == 3:
+    names = channel_names(f.shape, colour_space)
+    if names[1:2] == ("colour_a",):
         from skimage.color import rgb2lab
 
         if np.issubdtype(img.dtype, np.integer):
@@ -89,7 +117,6 @@ def _channels(image: np.ndarray, colour_space: str) -> list[tuple[str, np.ndarra
             hi = f.max()
             rgb = f / hi if hi > 1.0 else f
         lab = rgb2lab(np.clip(rgb, 0.0, 1.0))
-        names = ("brightness", "colour_a", "colour_b")
         return [(names[c], lab[..., c], _LAB_RANGES[c]) for c in range(3)]
     # Robust per-channel normalisation to percentiles 1 and 99 (common practice for microscopy).
     chans = [f] if f.ndim == 2 else [f[..., c] for c in range(f.shape[2])]
@@ -100,8 +127,7 @@ def _channels(image: np.ndarray, colour_space: str) -> list[tuple[str, np.ndarra
             lo, hi = float(ch.min()), float(ch.max())
         if hi <= lo:
             hi = lo + 1.0
-        name = "brightness" if c == 0 else f"channel_{c}"
-        out.append((name, ch, (float(lo), float(hi))))
+        out.append((names[c], ch, (float(lo), float(hi))))
     return out
 
 

@@ -712,14 +712,16 @@ def _boundary_model_record(image: np.ndarray, preset) -> dict[str, Any] | None:
     """Which learned boundary model the hierarchy used (None: the preset has none)."""
     if not preset.boundary_model:
         return None
-    from imgcut.boundary_model import model_digest
+    from imgcut.boundary_model import load_boundary_model, model_applies, model_digest
+    from imgcut.cues import channel_names
 
+    model = load_boundary_model(preset.boundary_model)
     return {
         "name": preset.boundary_model,
         "sha256": model_digest(preset.boundary_model),
-        # the model reads CIE Lab colour cues, which only 3-channel images have
-        # (imgcut.cues.local_cues); other images keep the preset's hand cue weights
-        "applied": bool(image.ndim == 3 and image.shape[2] == 3),
+        # False: the image lacks cue channels the model reads (grey or non-RGB under the
+        # photo model), and the preset's hand cue weights were used
+        "applied": model_applies(model, channel_names(image.shape, preset.colour_space)),
     }
 
 

@@ -318,17 +318,10 @@ def _check_contrast(p) -> None:
 
 def _local_tensor(cues, p) -> np.ndarray:
     """The preset's combined cue tensor, through its boundary model if it has one."""
+    from .boundary_model import apply_preset_model
     from .cues import combine_cues
 
-    local = combine_cues(cues, p.weights())
-    if p.boundary_model:
-        from .boundary_model import apply_boundary_model, load_boundary_model
-
-        model = load_boundary_model(p.boundary_model)
-        # the model reads colour cues: grey and non-RGB images keep the hand-weighted strength
-        if set(model.cue_names) <= set(cues.names):
-            local = apply_boundary_model(model, cues, local)
-    return local
+    return apply_preset_model(p, cues, combine_cues(cues, p.weights()))
 
 
 def _boundary_from_cues(

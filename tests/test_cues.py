@@ -179,3 +179,21 @@ def test_quantised_channels_bin_lab_values_of_scikit_image():
         cues.quantised_channels(img, tex[:-1])
     with pytest.raises(ValueError, match="n_bins"):
         cues.quantised_channels(img, n_bins=1)
+
+
+@pytest.mark.parametrize(
+    ("shape", "space"),
+    [
+        ((12, 14), "lab"),
+        ((12, 14, 1), "lab"),
+        ((12, 14, 3), "lab"),
+        ((12, 14, 3), "percentile"),
+        ((12, 14, 2), "lab"),
+        ((12, 14, 4), "percentile"),
+    ],
+)
+def test_channel_names_are_the_channels_local_cues_makes(shape, space):
+    img = np.random.default_rng(0).random(shape)
+    c = cues.local_cues(img, colour_space=space, texture_sigmas=(), n_textons=2)
+    made = tuple(dict.fromkeys(n.partition("@")[0] for n in c.names))
+    assert made == cues.channel_names(shape, space)

@@ -481,3 +481,15 @@ def test_boundary_method_on_a_colour_file_records_why(tmp_path):
     bm = report.record["segmentation"]["boundary_model"]
     digest = hashlib.sha256((MODEL_DIR / f"{bm['name']}.json").read_bytes()).hexdigest()
     assert bm["sha256"] == digest and bm["applied"] is True
+
+
+def test_record_says_when_the_boundary_model_did_not_apply(tmp_path):
+    # A grey image has no colour cues: the boundary method keeps the hand cue weights and the
+    # record says the model was not applied.
+    img = np.zeros((40, 48), np.uint8)
+    img[:, 24:] = 200
+    Image.fromarray(img).save(tmp_path / "grey.png")
+    report = process_image(
+        tmp_path / "grey.png", tmp_path / "out", SegmentOptions(method="boundary")
+    )
+    assert report.record["segmentation"]["boundary_model"]["applied"] is False
